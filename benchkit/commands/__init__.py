@@ -1,0 +1,1 @@
+"""Subcommands of the ``benchkit`` CLI, one module each."""

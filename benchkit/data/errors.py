@@ -1,0 +1,5 @@
+"""Re-export of :class:`benchkit.errors.DataError` for the data layer."""
+
+from benchkit.errors import DataError
+
+__all__ = ["DataError"]

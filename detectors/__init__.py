@@ -1,0 +1,1 @@
+"""Built-in detector plug-ins for benchkit, one module each."""
