@@ -20,6 +20,7 @@ COMMAND_MODULES = (
     "benchkit.commands.report",
     "benchkit.commands.verify",
     "benchkit.commands.rescore",
+    "benchkit.commands.export",
 )
 
 
