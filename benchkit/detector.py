@@ -67,7 +67,7 @@ class Param:
         return text
 
     def validate(self, value: Any, where: str = "") -> Any:
-        """Return ``value`` (ints widened to float where a float is declared) or raise ParamError."""
+        """Return ``value`` (an int widened to float for a float) or raise ParamError."""
         where = where or self.name
         if value is None:
             if self.nullable:
@@ -141,6 +141,10 @@ class Detector:
         window = getattr(self, "window", None)
         return int(window) - 1 if isinstance(window, int) and window > 1 else 0
 
+    def threshold_hint(self, train_scores: np.ndarray) -> float | None:
+        """Optional threshold suggested by the method itself (e.g. a control limit); ``None``."""
+        return None
+
     def fit(self, train: np.ndarray) -> Detector:  # pragma: no cover - interface
         raise NotImplementedError
 
@@ -152,11 +156,15 @@ class Detector:
         return f"{type(self).__name__}({args})"
 
 
-def check_series(series: np.ndarray, what: str = "series", n_channels: int | None = None) -> np.ndarray:
+def check_series(
+    series: np.ndarray, what: str = "series", n_channels: int | None = None
+) -> np.ndarray:
     """Validate a detector input: 2-D, finite, float64; raise ValueError with a clear message."""
     arr = np.asarray(series)
     if arr.ndim != 2:
-        raise ValueError(f"{what}: expected a 2-D (n_steps, n_channels) array, got shape {arr.shape}")
+        raise ValueError(
+            f"{what}: expected a 2-D (n_steps, n_channels) array, got shape {arr.shape}"
+        )
     if n_channels is not None and arr.shape[1] != n_channels:
         raise ValueError(f"{what}: expected {n_channels} channels (as in fit), got {arr.shape[1]}")
     arr = arr.astype(np.float64, copy=False)

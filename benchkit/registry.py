@@ -1,4 +1,4 @@
-"""The detector registry: built-ins (decorator), entry points ``benchkit.detectors``, ``module:Class``.
+"""The detector registry: built-ins, entry points ``benchkit.detectors``, ``module:Class`` paths.
 
 The only global state in benchkit.
 """
@@ -11,7 +11,7 @@ from importlib.metadata import entry_points
 from typing import Any
 
 from benchkit.detector import Detector
-from benchkit.errors import DetectorNotFound, ParamError
+from benchkit.errors import DetectorNotFound
 
 ENTRY_POINT_GROUP = "benchkit.detectors"
 BUILTIN_MODULES = (
@@ -59,7 +59,10 @@ def _load() -> None:
         try:
             cls = ep.load()
             _check_class(cls, f"entry point {ep.name!r}")
-            _REGISTRY.setdefault(cls.name, cls)
+            holder = _REGISTRY.setdefault(cls.name, cls)
+            if holder is not cls:
+                taken = f"{holder.__module__}.{holder.__qualname__}"
+                raise TypeError(f"name {cls.name!r} is already taken by {taken}")
         except Exception as exc:
             _LOAD_ERRORS[f"entry point {ep.name} ({ep.value})"] = f"{type(exc).__name__}: {exc}"
     for where, msg in _LOAD_ERRORS.items():
@@ -84,27 +87,38 @@ def available() -> list[str]:
 
 
 def get(name: str) -> type[Detector]:
-    """The detector class for a registered name or a ``module:Class`` path."""
+    """The detector class for a registered name, a family member (``pyod:LOF``) or ``module:Class``.
+
+    Raises
+    ------
+    DetectorNotFound
+        With the list of valid names, or the reason a ``module:Class`` path did not load.
+    """
     _load()
     if name in _REGISTRY:
         return _REGISTRY[name]
-    if ":" in name and not name.startswith("pyod:"):
-        module, _, attr = name.partition(":")
-        try:
-            cls = getattr(importlib.import_module(module), attr)
-        except (ImportError, AttributeError) as exc:
-            raise DetectorNotFound(f"cannot load detector {name!r}: {exc}") from None
-        try:
-            _check_class(cls, name)
-        except TypeError as exc:
-            raise DetectorNotFound(str(exc)) from None
-        return cls
-    resolver = _RESOLVERS.get(name.partition(":")[0]) if ":" in name else None
-    if resolver is not None:
-        return resolver(name)
+    prefix, colon, member = name.partition(":")
+    if colon and prefix in _RESOLVERS:
+        return _RESOLVERS[prefix](name)
+    if colon and prefix and member:
+        return _load_path(name, prefix, member)
     raise DetectorNotFound(
         f"unknown detector {name!r}; available: {', '.join(available())} (or module:Class)"
     )
+
+
+def _load_path(name: str, module: str, attr: str) -> type[Detector]:
+    try:
+        cls = getattr(importlib.import_module(module), attr)
+    except Exception as exc:  # any failure of a user's module is reported, by name, in one line
+        raise DetectorNotFound(
+            f"cannot load detector {name!r}: {type(exc).__name__}: {exc}"
+        ) from None
+    try:
+        _check_class(cls, name)
+    except TypeError as exc:
+        raise DetectorNotFound(str(exc)) from None
+    return cls
 
 
 # prefix -> function(name) -> class, for families such as ``pyod:<Model>``
@@ -112,15 +126,18 @@ _RESOLVERS: dict[str, Any] = {}
 
 
 def register_family(prefix: str, resolver: Any) -> None:
-    """Register a resolver for names ``prefix:<member>`` (e.g. ``pyod:ECOD``)."""
+    """Register a resolver for names ``prefix:<member>`` (e.g. ``pyod:ECOD``).
+
+    ``resolver(name) -> type[Detector]`` is called for names not registered directly; it raises
+    :class:`DetectorNotFound` for members it does not know.
+    """
     _RESOLVERS[prefix] = resolver
 
 
 def create(name: str, where: str = "", **params: Any) -> Detector:
-    """An instance of detector ``name`` with validated ``params`` (defaults filled in)."""
+    """An instance of detector ``name`` with validated ``params`` (defaults filled in).
+
+    ``where`` (e.g. ``detectors[2].params``) prefixes the key path in a :class:`ParamError`.
+    """
     cls = get(name)
-    try:
-        valid = cls.validate_params(params, where)
-    except ParamError:
-        raise
-    return cls(**valid)
+    return cls(**cls.validate_params(params, where))
