@@ -9,7 +9,6 @@ different when their average ranks differ by at least the critical difference
 
 from __future__ import annotations
 
-import re
 from functools import lru_cache
 from typing import NamedTuple
 
@@ -164,38 +163,47 @@ class BootstrapCI(NamedTuple):
     high: float
 
 
-_PAK = re.compile(r"pak(\d+(?:\.\d+)?)")
+ADJUSTMENTS = (None, "point", "pa%k", "delay")  # the names benchkit.metrics uses
 
 
-def _pak_fraction(adjust: str | None) -> float | None:
-    """None for point-wise F1, else the share of an event that must be detected (0 = PA)."""
-    if adjust in (None, "none"):
-        return None
-    if adjust == "pa":
-        return 0.0
-    match = _PAK.fullmatch(adjust) if isinstance(adjust, str) else None
-    if match is None or float(match.group(1)) > 100:
-        raise ValueError(
-            f"adjust: expected none, 'pa' or 'pak<K>' with K in 0..100, got {adjust!r}"
-        )
-    return float(match.group(1)) / 100.0
+def _check_adjust(adjust: str | None, k: float | None, delay: int | None) -> None:
+    if adjust not in ADJUSTMENTS:
+        raise ValueError(f"adjust: expected one of {ADJUSTMENTS}, got {adjust!r}")
+    if (adjust == "pa%k") != (k is not None):
+        raise ValueError("k: give k (percent, 0 to 100) exactly when adjust='pa%k'")
+    if k is not None and not 0 <= k <= 100:
+        raise ValueError(f"k: expected a percentage in [0, 100], got {k!r}")
+    if (adjust == "delay") != (delay is not None):
+        raise ValueError("delay: give delay (steps, >= 0) exactly when adjust='delay'")
+    if delay is not None and (int(delay) != delay or delay < 0):
+        raise ValueError(f"delay: expected an integer >= 0, got {delay!r}")
 
 
 def event_blocks(
-    pred: np.ndarray, labels: np.ndarray, adjust: str | None = None
+    pred: np.ndarray,
+    labels: np.ndarray,
+    adjust: str | None = None,
+    k: float | None = None,
+    delay: int | None = None,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """True positives, false positives and false negatives per event block.
 
     Block i holds event i (a maximal run of label 1) and the normal steps after it up to the
-    next event; the normal steps before the first event join block 0. With ``adjust="pa"``
-    an event with any detection counts every one of its steps as detected; with
-    ``"pak<K>"`` (PA%K) only when at least K percent of its steps are detected (and at least
-    one is).
+    next event; the normal steps before the first event join block 0.
+
+    Parameters
+    ----------
+    pred : (n,) boolean predictions; labels : (n,) 0/1 labels.
+    adjust : ``None`` (point-wise); ``"point"`` (point adjustment, Xu et al. 2018: an event
+        with any detection counts in full); ``"pa%k"`` (Kim et al. 2022: in full when strictly
+        more than ``k`` percent of it is detected, else point-wise); ``"delay"`` (in full when
+        detected within its first ``delay + 1`` steps, else not at all).
 
     Returns
     -------
     ``(tp, fp, fn)``, one entry per event, int64.
     """
+    _check_adjust(adjust, k, delay)
     p = np.asarray(pred).astype(bool).ravel()
     y = np.asarray(labels).astype(bool).ravel()
     if p.shape != y.shape:
@@ -206,14 +214,20 @@ def event_blocks(
         empty = np.zeros(0, dtype=np.int64)
         return empty, empty, empty
     block = np.maximum(np.cumsum(is_start) - 1, 0)
-    tp = np.bincount(block, weights=p & y, minlength=m).astype(np.int64)
-    fp = np.bincount(block, weights=p & ~y, minlength=m).astype(np.int64)
-    length = np.bincount(block, weights=y, minlength=m).astype(np.int64)
-    share = _pak_fraction(adjust)
-    if share is not None:
-        detected = (tp > 0) & (tp >= share * length)
-        tp = np.where(detected, length, 0)
-    return tp, fp, length - tp
+
+    def per_block(values: np.ndarray) -> np.ndarray:
+        return np.bincount(block, weights=values, minlength=m).astype(np.int64)
+
+    hits, length, fp = per_block(p & y), per_block(y), per_block(p & ~y)
+    if adjust == "point":
+        hits = np.where(hits > 0, length, hits)
+    elif adjust == "pa%k":
+        hits = np.where(hits * 100.0 > k * length, length, hits)
+    elif adjust == "delay":
+        offset = np.arange(y.size) - np.flatnonzero(is_start)[block]
+        caught = per_block(p & y & (offset <= delay)) > 0
+        hits = np.where(caught, length, 0)
+    return hits, fp, length - hits
 
 
 def _f1(tp: np.ndarray, fp: np.ndarray, fn: np.ndarray) -> np.ndarray:
@@ -229,6 +243,8 @@ def bootstrap_f1_ci(
     level: float = 0.95,
     seed: int = 0,
     adjust: str | None = None,
+    k: float | None = None,
+    delay: int | None = None,
 ) -> BootstrapCI:
     """Percentile bootstrap interval for F1, resampling events with their normal stretches.
 
@@ -241,7 +257,7 @@ def bootstrap_f1_ci(
     pred : (n,) boolean predictions; labels : (n,) 0/1 labels.
     n_boot : number of replicates; level : coverage of the interval.
     seed : seed of the resampling Generator.
-    adjust : ``None`` (point-wise F1), ``"pa"`` (point-adjusted) or ``"pak<K>"`` (PA%K).
+    adjust, k, delay : the adjustment, as in :func:`event_blocks` and ``benchkit.metrics``.
 
     Returns
     -------
@@ -251,7 +267,7 @@ def bootstrap_f1_ci(
         raise ValueError(f"n_boot must be >= 1, got {n_boot!r}")
     if not 0 < level < 1:
         raise ValueError(f"level must lie in (0, 1), got {level!r}")
-    tp, fp, fn = event_blocks(pred, labels, adjust)
+    tp, fp, fn = event_blocks(pred, labels, adjust, k, delay)
     if tp.size == 0:
         return BootstrapCI(float("nan"), float("nan"), float("nan"))
     estimate = float(_f1(tp.sum(), fp.sum(), fn.sum()))

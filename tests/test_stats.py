@@ -138,24 +138,39 @@ def test_event_blocks_worked_example():
     # by hand: blocks are [0..4] (event 1-2, FP at 0 and 4), [5..8] (event 5-7, FP at 8), [9]
     tp, fp, fn = event_blocks(pred, labels)
     assert (tp.tolist(), fp.tolist(), fn.tolist()) == ([1, 0, 1], [2, 1, 0], [1, 3, 0])
-    tp, fp, fn = event_blocks(pred, labels, adjust="pa")  # detected events count in full
+    tp, fp, fn = event_blocks(pred, labels, adjust="point")  # detected events count in full
     assert (tp.tolist(), fp.tolist(), fn.tolist()) == ([2, 0, 1], [2, 1, 0], [0, 3, 0])
-    tp, _, fn = event_blocks(pred, labels, adjust="pak60")  # 1 of 2 is below 60 %
+    # PA%K at K = 50: 1 of 2 is not strictly above 50 %, so that event stays point-wise
+    tp, _, fn = event_blocks(pred, labels, adjust="pa%k", k=50)
+    assert (tp.tolist(), fn.tolist()) == ([1, 0, 1], [1, 3, 0])
+    # delay-bounded: at delay 0 only an event's first step counts, at delay 1 its first two
+    tp, _, fn = event_blocks(pred, labels, adjust="delay", delay=0)
     assert (tp.tolist(), fn.tolist()) == ([0, 0, 1], [2, 3, 0])
+    tp, _, _ = event_blocks(pred, labels, adjust="delay", delay=1)
+    assert tp.tolist() == [2, 0, 1]
+
+
+def _hand_adjusted(pred: np.ndarray, labels: np.ndarray, k: float) -> np.ndarray:
+    """PA%K written out event by event from the definition (Kim et al. 2022; K = 0 is PA,
+    Xu et al. 2018): an event strictly more than K percent detected becomes wholly detected."""
+    adjusted = pred.copy()
+    edges = np.diff(np.concatenate(([0], labels, [0])))
+    for start, end in zip(np.flatnonzero(edges == 1), np.flatnonzero(edges == -1), strict=True):
+        if pred[start:end].sum() * 100 > k * (end - start):
+            adjusted[start:end] = True
+    return adjusted
 
 
 def test_bootstrap_estimate_is_sklearn_f1_and_pa_estimate_is_hand_adjusted_f1():
     pred, labels = _labelled_events(1)
     ci = bootstrap_f1_ci(pred, labels, n_boot=200, seed=3)
     assert ci.estimate == pytest.approx(f1_score(labels, pred), rel=1e-12)  # reference: sklearn
-    # point adjustment (Xu et al. 2018): every step of a detected event becomes a detection
-    adjusted = pred.copy()
-    edges = np.diff(np.concatenate(([0], labels, [0])))
-    for start, end in zip(np.flatnonzero(edges == 1), np.flatnonzero(edges == -1), strict=True):
-        if pred[start:end].any():
-            adjusted[start:end] = True
-    pa = bootstrap_f1_ci(pred, labels, n_boot=200, seed=3, adjust="pa")
-    assert pa.estimate == pytest.approx(f1_score(labels, adjusted), rel=1e-12)
+    # reference: sklearn f1_score of the predictions adjusted by hand
+    pa = bootstrap_f1_ci(pred, labels, n_boot=200, seed=3, adjust="point")
+    assert pa.estimate == pytest.approx(f1_score(labels, _hand_adjusted(pred, labels, 0)))
+    pak = bootstrap_f1_ci(pred, labels, n_boot=200, seed=3, adjust="pa%k", k=50)
+    assert pak.estimate == pytest.approx(f1_score(labels, _hand_adjusted(pred, labels, 50)))
+    assert ci.estimate < pak.estimate < pa.estimate
     assert ci.low <= ci.estimate <= ci.high and pa.low <= pa.estimate <= pa.high
 
 
@@ -190,4 +205,8 @@ def test_bootstrap_is_seeded_and_wider_at_higher_level():
 def test_bootstrap_without_events_is_nan_and_bad_adjust_is_refused():
     assert all(np.isnan(bootstrap_f1_ci(np.ones(10, bool), np.zeros(10))))
     with pytest.raises(ValueError, match="adjust"):
-        bootstrap_f1_ci(np.ones(10, bool), np.ones(10), adjust="pak150")
+        bootstrap_f1_ci(np.ones(10, bool), np.ones(10), adjust="pa")
+    with pytest.raises(ValueError, match="k: expected a percentage"):
+        bootstrap_f1_ci(np.ones(10, bool), np.ones(10), adjust="pa%k", k=150)
+    with pytest.raises(ValueError, match="k: give k"):
+        bootstrap_f1_ci(np.ones(10, bool), np.ones(10), adjust="pa%k")
