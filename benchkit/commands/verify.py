@@ -1,0 +1,53 @@
+"""``benchkit verify SCORECARD``: re-run a scorecard's spec and compare every metric.
+
+Exit status 0 when every value agrees within the tolerance, 1 when some differ, 2 for bad input
+(missing or malformed file, a digest that does not match, an invalid spec).
+"""
+
+from __future__ import annotations
+
+import argparse
+from pathlib import Path
+
+from benchkit.report import differences_table, render_table, verify_scorecard
+
+
+def add_parser(subparsers) -> None:
+    """Register ``verify`` on the CLI's subparsers."""
+    parser = subparsers.add_parser(
+        "verify",
+        help="re-run what a scorecard describes and compare every metric",
+        description=(
+            "Check the scorecard's digest, re-run its spec and list every metric that differs "
+            "from the scorecard by more than the tolerance. Exit 0: reproduced; 1: not "
+            "reproduced; 2: bad input."
+        ),
+    )
+    parser.add_argument("scorecard", type=Path, metavar="SCORECARD", help="a scorecard.json")
+    parser.add_argument("--tolerance", type=float, default=1e-9, metavar="T",
+                        help="largest absolute difference counted as equal (default: 1e-9)")
+    parser.add_argument("--fresh", action="store_true",
+                        help="recompute every cell, never reuse a results store's cache")
+    parser.add_argument("--out", type=Path, default=None, metavar="DIR",
+                        help="re-run into DIR (default: the scorecard's folder when it holds the "
+                             "results store, else a temporary folder removed afterwards)")
+    parser.add_argument("--workers", type=int, default=None, metavar="N",
+                        help="local worker processes (default: the spec's setting)")
+    parser.add_argument("--quiet", action="store_true", help="print only the verdict line")
+    parser.set_defaults(func=run)
+
+
+def run(args: argparse.Namespace) -> int:
+    """Verify, print the differences (if any) and the verdict; return the exit status."""
+    result = verify_scorecard(args.scorecard, args.tolerance, args.fresh, args.out,
+                              workers=args.workers)
+    if result.reproduced:
+        print(f"reproduced: all {result.n_values} values of {result.n_cells} cells agree "
+              f"within {result.tolerance:g}")
+        return 0
+    if not args.quiet:
+        print(render_table(differences_table(result), "plain"))
+    n_bad = len(result.differences) + len(result.fingerprint_mismatches)
+    print(f"not reproduced: {n_bad} values differ beyond {result.tolerance:g} "
+          f"({result.n_values} values of {result.n_cells} cells compared)")
+    return 1

@@ -1,0 +1,167 @@
+"""Build every report output of a results folder: tables, plots, HTML and the scorecard."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from benchkit.errors import DataError
+from benchkit.report import plots
+from benchkit.report.files import write_text_atomic
+from benchkit.report.html import build_html
+from benchkit.report.render import EXTENSIONS, check_format, render_table
+from benchkit.report.scorecard import write_scorecard
+from benchkit.report.tables import (
+    CLEAN,
+    STRATEGIES,
+    Table,
+    comparison_table,
+    metric_threshold,
+    rank_table,
+    robustness_table,
+    timing_table,
+)
+from benchkit.store import Store
+from benchkit.sweep import sweep_curves
+
+DEMO_STEP = "test time step (5 min each)"
+GENERIC_STEP = "test time step (index)"
+
+
+def check_choices(metrics: pd.DataFrame, metric: str, threshold: str | None) -> None:
+    """Raise DataError when the run lacks ``metric`` or the ``threshold`` strategy."""
+    present = sorted(set(metrics["metric"]))
+    if metric not in present:
+        raise DataError(
+            f"--metric: this run has no metric {metric!r}; it has: {', '.join(present) or 'none'}"
+        )
+    strategies = _strategies(metrics)
+    if threshold is not None and threshold not in strategies:
+        raise DataError(
+            f"--threshold: this run has no {threshold!r} results; it has: "
+            f"{', '.join(strategies) or 'none'}"
+        )
+
+
+def _strategies(metrics: pd.DataFrame) -> list[str]:
+    return [s for s in STRATEGIES if s in set(metrics["threshold"])]
+
+
+def chosen_threshold(metrics: pd.DataFrame, threshold: str | None) -> str:
+    """``threshold``, else the first strategy the run has (oracle, pot, quantile order)."""
+    return threshold or next(iter(_strategies(metrics)), "oracle")
+
+
+def build_tables(
+    metrics: pd.DataFrame, cells: pd.DataFrame, metric: str = "f1", threshold: str | None = None
+) -> list[Table]:
+    """Comparison tables (every strategy in the run, or only ``threshold``), then the timing,
+    robustness and rank tables for ``metric`` under ``threshold`` (default: the first
+    strategy present, in the order oracle, pot, quantile)."""
+    check_choices(metrics, metric, threshold)
+    chosen = chosen_threshold(metrics, threshold)
+    shown = [threshold] if threshold else _strategies(metrics)
+    return [
+        *(comparison_table(metrics, s) for s in shown),
+        timing_table(cells),
+        robustness_table(metrics, metric, chosen),
+        rank_table(metrics, metric, chosen),
+    ]
+
+
+def _trace_cells(cells: pd.DataFrame) -> tuple[str, pd.DataFrame]:
+    """The clean, successful cells of the first entity and seed: one per variant."""
+    ok = cells[(cells["status"] == "ok") & (cells["perturbation"] == CLEAN)]
+    if ok.empty:
+        return "", ok
+    first = ok.sort_values(["dataset", "entity", "seed"]).iloc[0]
+    pick = ok[
+        (ok["dataset"] == first["dataset"])
+        & (ok["entity"] == first["entity"])
+        & (ok["seed"] == first["seed"])
+    ]
+    return f"{first['dataset']}/{first['entity']}", pick.sort_values("variant")
+
+
+def _step_label(spec: dict) -> str:
+    sources = {d.get("source") for d in spec.get("datasets", [])}
+    return DEMO_STEP if sources == {"demo"} else GENERIC_STEP
+
+
+def build_plots(
+    store: Store, metrics: pd.DataFrame, rank: Table, metric: str, threshold: str, folder: Path
+) -> list[tuple[str, str, Path]]:
+    """Write the four PNGs to ``folder``; return ``(name, caption, path)`` triples."""
+    out = []
+    curves = sweep_curves(metrics, metric, threshold)
+    out.append(("noise-curves", f"{metric} versus noise level per detector",
+                plots.plot_noise_curves(curves, metric, folder / "noise-curves.png")))
+    entity, picked = _trace_cells(store.cells_frame())
+    cached = [(row.variant, store.load_scores(row.cell_key)) for row in picked.itertuples()]
+    step = _step_label(store.latest_run()["spec"])
+    out.append(("score-trace", f"Test scores on {entity}, labelled events shaded, thresholds drawn",
+                plots.plot_score_traces(cached, folder / "score-trace.png", entity, step)))
+    cd = rank.data.attrs.get("cd", np.nan)
+    out.append(("critical-difference",
+                f"Critical-difference diagram of {metric} over entities (Nemenyi)",
+                plots.plot_critical_difference(rank.data["average_rank"].dropna(), cd,
+                                               folder / "critical-difference.png",
+                                               rank.data.attrs.get("alpha", 0.05))))
+    from benchkit.metrics import f1_curve  # TEMP until benchkit.metrics lands
+
+    pr = []
+    for variant, scores in cached:
+        curve = f1_curve(np.asarray(scores["test_scores"]), np.asarray(scores["labels"]))
+        pr.append((variant, curve.recall, curve.precision))
+    prevalence = float(np.mean(cached[0][1]["labels"])) if cached else np.nan
+    out.append(("pr-curves", f"Point-wise precision-recall curves on {entity}",
+                plots.plot_pr_curves(pr, prevalence, folder / "pr-curves.png", entity)))
+    return out
+
+
+def write_all(
+    out: Path, fmt: str = "md", *, metric: str = "f1", threshold: str | None = None
+) -> dict[str, Path]:
+    """Write ``OUT/tables/*``, ``OUT/plots/*.png``, ``OUT/report.html`` and ``OUT/scorecard.json``.
+
+    Parameters
+    ----------
+    out : a results folder written by ``benchkit run``.
+    fmt : table file format: ``md``, ``latex``, ``html`` or ``plain``.
+    metric : the metric ranked, swept and plotted (threshold-free ones such as ``roc_auc``
+        are allowed).
+    threshold : strategy for the robustness and rank tables and the plots; the comparison
+        tables cover every strategy the run has unless one is given.
+
+    Returns
+    -------
+    ``name -> path`` of every file written, e.g. ``"table:timing"``, ``"plot:pr-curves"``,
+    ``"html"``, ``"scorecard"``.
+    """
+    check_format(fmt)
+    out = Path(out)
+    written: dict[str, Path] = {}
+    with Store(out) as store:
+        metrics, cells, run = store.metrics_frame(), store.cells_frame(), store.latest_run()
+        if metrics.empty:
+            raise DataError(f"{out}: the latest run has no successful cell to report on")
+        tables = build_tables(metrics, cells, metric, threshold)
+        for table in tables:
+            path = out / "tables" / f"{table.name}.{EXTENSIONS[fmt]}"
+            written[f"table:{table.name}"] = write_text_atomic(path, render_table(table, fmt))
+        chosen = metric_threshold(metric, chosen_threshold(metrics, threshold))
+        figures = build_plots(store, metrics, tables[-1], metric, chosen, out / "plots")
+        written.update({f"plot:{name}": path for name, _, path in figures})
+        failed = cells[cells["status"] != "ok"]
+        remarks = [
+            f"{len(failed)} of {len(cells)} cells did not finish "
+            f"({', '.join(sorted(set(failed['status'])))}); their metrics are missing."
+        ] if len(failed) else []
+        page = build_html(run.get("name") or run["spec"].get("name", "run"), tables, figures,
+                          run.get("spec_toml", ""), run.get("environment", {}),
+                          run.get("fingerprints", {}), remarks)
+        written["html"] = write_text_atomic(out / "report.html", page)
+        written["scorecard"] = write_scorecard(store, out / "scorecard.json")
+    return written

@@ -1,0 +1,250 @@
+"""PNG plots drawn with matplotlib's Agg canvas (no display, no pyplot global state).
+
+Colours are the Okabe–Ito palette, distinguishable by readers with the common colour-vision
+deficiencies; past eight series the colours repeat with another line style. Every axis names its
+quantity and unit.
+"""
+
+from __future__ import annotations
+
+import io
+from collections.abc import Mapping, Sequence
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.figure import Figure
+
+from benchkit.report.files import write_bytes_atomic
+from benchkit.stats import tied_groups
+
+# Okabe & Ito, "Color Universal Design" (2008): the eight colours, typed in as hex.
+OKABE_ITO = (
+    "#000000",  # black
+    "#E69F00",  # orange
+    "#56B4E9",  # sky blue
+    "#009E73",  # bluish green
+    "#F0E442",  # yellow
+    "#0072B2",  # blue
+    "#D55E00",  # vermillion
+    "#CC79A7",  # reddish purple
+)
+LINE_STYLES = ("-", "--", ":", "-.")
+MARKERS = ("o", "s", "^", "D", "v", "P", "X", "*")
+THRESHOLD_STYLES = {
+    "threshold_oracle_f1": ("oracle (best F1, peeks at labels)", "#D55E00", "--"),
+    "threshold_pot": ("POT (train scores)", "#0072B2", "-."),
+    "threshold_quantile": ("quantile (train scores)", "#009E73", ":"),
+}
+NOISE_UNITS = {
+    "additive": "additive noise σ (× channel train std)",
+    "multiplicative": "multiplicative noise σ (relative error, × value)",
+    "impulse": "impulse noise level (spike rate per step, or t-noise scale)",
+    "missing": "missing-value rate (fraction of steps)",
+    "drift": "gain drift level (gain change by series end, × N(0,1) draw)",
+}
+BOUNDED = ("f1", "precision", "recall", "auc", "event_recall")
+
+
+def series_style(i: int) -> dict:
+    """Colour, line style and marker of the ``i``-th series."""
+    return {
+        "color": OKABE_ITO[i % len(OKABE_ITO)],
+        "linestyle": LINE_STYLES[(i // len(OKABE_ITO)) % len(LINE_STYLES)],
+        "marker": MARKERS[i % len(MARKERS)],
+    }
+
+
+def metric_axis_label(metric: str) -> str:
+    """Axis label with the metric's unit, e.g. ``f1 (0–1)`` or ``delay_mean (time steps)``."""
+    if metric.startswith("delay_m"):
+        return f"{metric} (time steps)"
+    if any(metric.endswith(b) for b in BOUNDED):
+        return f"{metric} (0–1)"
+    return metric
+
+
+def _save(fig: Figure, path: Path) -> Path:
+    FigureCanvasAgg(fig)
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=100, metadata={"Software": None})
+    write_bytes_atomic(path, buf.getvalue())
+    return path
+
+
+def plot_noise_curves(curves: pd.DataFrame, metric: str, path: Path) -> Path:
+    """Write :func:`noise_figure` as a PNG to ``path``."""
+    return _save(noise_figure(curves, metric), path)
+
+
+def noise_figure(curves: pd.DataFrame, metric: str) -> Figure:
+    """Metric versus noise level per detector, one panel per (noise kind, applied to).
+
+    ``curves`` has columns ``variant, kind, apply_to, level, mean, std`` (as from
+    :func:`benchkit.sweep.sweep_curves`); the band is ± one std over entities and seeds.
+    """
+    panels = sorted(curves.groupby(["kind", "apply_to"]).groups) if len(curves) else []
+    n = max(len(panels), 1)
+    fig = Figure(figsize=(5.5 * n, 4.0), layout="constrained")
+    axes = fig.subplots(1, n, squeeze=False)[0]
+    variants = sorted(curves["variant"].unique()) if len(curves) else []
+    for ax, (kind, apply_to) in zip(axes, panels, strict=False):
+        panel = curves[(curves["kind"] == kind) & (curves["apply_to"] == apply_to)]
+        for i, variant in enumerate(variants):
+            line = panel[panel["variant"] == variant].sort_values("level")
+            if line.empty:
+                continue
+            style = series_style(i)
+            x, y = line["level"].to_numpy(float), line["mean"].to_numpy(float)
+            sd = np.nan_to_num(line["std"].to_numpy(float))
+            ax.plot(x, y, label=variant, **style)
+            ax.fill_between(x, y - sd, y + sd, color=style["color"], alpha=0.12, linewidth=0)
+        ax.set_xlabel(NOISE_UNITS.get(kind, f"{kind} noise level"))
+        ax.set_ylabel(metric_axis_label(metric))
+        ax.set_title(f"{kind} noise applied to {apply_to}")
+        ax.grid(alpha=0.3)
+    if not panels:
+        axes[0].text(0.5, 0.5, "this run has no noise sweep", ha="center", va="center")
+        axes[0].set_xlabel("noise level")
+        axes[0].set_ylabel(metric_axis_label(metric))
+    if variants and panels:
+        axes[-1].legend(fontsize="small", loc="best")
+    return fig
+
+
+def _draw_thresholds(ax, scores: np.ndarray, thresholds: Mapping[str, float]) -> None:
+    finite = scores[np.isfinite(scores)]
+    lo, hi = (float(finite.min()), float(finite.max())) if finite.size else (0.0, 1.0)
+    span = max(hi - lo, 1e-12)
+    for key, (label, colour, style) in THRESHOLD_STYLES.items():
+        theta = thresholds.get(key)
+        if theta is None or not np.isfinite(theta):
+            continue
+        if lo - span <= theta <= hi + span:
+            ax.axhline(theta, color=colour, linestyle=style, linewidth=1.2, label=label)
+        else:
+            off = f"{label}: off scale, θ={theta:.3g}"
+            ax.plot([], [], color=colour, linestyle=style, label=off)
+
+
+def plot_score_traces(
+    traces: Sequence[tuple[str, Mapping]], path: Path, entity: str, step_label: str
+) -> Path:
+    """Write :func:`trace_figure` as a PNG to ``path``."""
+    return _save(trace_figure(traces, entity, step_label), path)
+
+
+def trace_figure(traces: Sequence[tuple[str, Mapping]], entity: str, step_label: str) -> Figure:
+    """Test scores of one entity, one panel per detector, labelled events shaded.
+
+    ``traces`` holds ``(variant, scores)`` pairs where ``scores`` is what ``Store.load_scores``
+    returns (``test_scores``, ``labels`` and the ``threshold_*`` values). Warm-up steps
+    (``-inf``) are left blank.
+    """
+    n = max(len(traces), 1)
+    height = 1.9 * n + 0.8
+    fig = Figure(figsize=(11.0, height))
+    fig.subplots_adjust(left=0.08, right=0.98, top=1 - 0.35 / height, bottom=0.55 / height,
+                        hspace=0.45)
+    axes = fig.subplots(n, 1, squeeze=False, sharex=True)[:, 0]
+    for ax, (variant, cached) in zip(axes, traces, strict=False):
+        scores = np.asarray(cached["test_scores"], dtype=float)
+        labels = np.asarray(cached["labels"]).astype(bool)
+        x = np.arange(scores.size)
+        ax.fill_between(
+            x, 0, 1, where=labels, transform=ax.get_xaxis_transform(),
+            color="#E69F00", alpha=0.3, linewidth=0, step="mid", label="labelled event",
+        )
+        ax.plot(x, np.where(np.isfinite(scores), scores, np.nan), color="#000000", linewidth=0.7)
+        _draw_thresholds(ax, scores, cached)
+        ax.set_title(f"{variant} on {entity}", fontsize="medium", loc="left")
+        ax.set_ylabel("score\n(higher = more anomalous)", fontsize="small")
+        ax.legend(fontsize="x-small", loc="upper right", ncols=2)
+    axes[-1].set_xlabel(step_label)
+    if not traces:
+        axes[0].text(0.5, 0.5, "no cached scores", ha="center", va="center")
+    return fig
+
+
+def plot_critical_difference(
+    average_ranks: pd.Series, cd: float, path: Path, alpha: float = 0.05
+) -> Path:
+    """Write :func:`cd_figure` as a PNG to ``path``."""
+    return _save(cd_figure(average_ranks, cd, alpha), path)
+
+
+def cd_figure(average_ranks: pd.Series, cd: float, alpha: float = 0.05) -> Figure:
+    """Critical-difference diagram: average ranks on one axis (1 = best, at the left), detectors
+    joined by a bar when their ranks differ by less than the Nemenyi critical difference ``cd``."""
+    order = average_ranks.sort_values()
+    names, ranks = list(order.index), order.to_numpy(float)
+    k = max(len(ranks), 2)
+    half = (len(ranks) + 1) // 2
+    height = 1.2 + 0.32 * half
+    fig = Figure(figsize=(8.0, height + 0.6), layout="constrained")
+    ax = fig.subplots()
+    ax.set_xlim(0.5 - 0.9, k + 0.5 + 0.9)
+    ax.set_ylim(-(half * 0.55 + 0.6), 1.6)
+    ax.hlines(0, 1, k, color="#000000", linewidth=1)
+    ticks = np.arange(1, k + 1)
+    ax.vlines(ticks, 0, 0.12, color="#000000", linewidth=1)
+    for t in ticks:
+        ax.text(t, 0.2, str(t), ha="center", va="bottom", fontsize="small")
+    for i, (name, r) in enumerate(zip(names, ranks, strict=True)):
+        left = i < half
+        row = -(i + 1 if left else len(ranks) - i) * 0.55
+        end = 0.5 - 0.1 if left else k + 0.5 + 0.1
+        ax.plot([r, r, end], [0, row, row], color=OKABE_ITO[5], linewidth=1)
+        ax.text(
+            end - 0.05 if left else end + 0.05, row, f"{name} ({r:.2f})",
+            ha="right" if left else "left", va="center", fontsize="small",
+        )
+    for g, group in enumerate(tied_groups(order, cd) if np.isfinite(cd) else []):
+        y = -0.18 - 0.14 * g
+        lo, hi = order[group[0]], order[group[-1]]
+        ax.plot([lo - 0.03, hi + 0.03], [y, y], color=OKABE_ITO[6], linewidth=3)
+    if np.isfinite(cd):
+        ax.plot([1, 1 + cd], [1.05, 1.05], color="#000000", linewidth=2)
+        ax.text(1 + cd / 2, 1.15, f"CD = {cd:.2f} (Nemenyi, α = {alpha:g})", ha="center",
+                va="bottom", fontsize="small")
+    ax.set_xlabel("average rank over entities (1 = best)")
+    ax.xaxis.set_label_position("top")
+    ax.set_xticks([])
+    ax.set_yticks([])
+    for side in ("left", "right", "top", "bottom"):
+        ax.spines[side].set_visible(False)
+    return fig
+
+
+def plot_pr_curves(
+    curves: Sequence[tuple[str, np.ndarray, np.ndarray]], prevalence: float, path: Path, entity: str
+) -> Path:
+    """Write :func:`pr_figure` as a PNG to ``path``."""
+    return _save(pr_figure(curves, prevalence, entity), path)
+
+
+def pr_figure(
+    curves: Sequence[tuple[str, np.ndarray, np.ndarray]], prevalence: float, entity: str
+) -> Figure:
+    """Point-wise precision–recall curves, one line per detector, with the no-skill level.
+
+    ``curves`` holds ``(variant, recall, precision)``; ``prevalence`` is the share of anomalous
+    test steps (the precision of a detector that flags at random).
+    """
+    fig = Figure(figsize=(6.5, 5.0), layout="constrained")
+    ax = fig.subplots()
+    for i, (variant, recall, precision) in enumerate(curves):
+        style = series_style(i)
+        style.pop("marker")
+        ax.plot(recall, precision, label=variant, drawstyle="steps-post", **style)
+    if np.isfinite(prevalence):
+        ax.axhline(prevalence, color="#999999", linestyle=":", label="random flagging")
+    ax.set_xlim(0, 1)
+    ax.set_ylim(0, 1.02)
+    ax.set_xlabel("recall, point-wise (0–1)")
+    ax.set_ylabel("precision, point-wise (0–1)")
+    ax.set_title(f"Precision–recall on {entity}")
+    ax.grid(alpha=0.3)
+    ax.legend(fontsize="small", loc="best")
+    return fig
