@@ -16,6 +16,7 @@ end of the train series, so every test step is scored by every detector.
 
 from __future__ import annotations
 
+import json
 import math
 from dataclasses import dataclass
 from typing import Any, ClassVar
@@ -27,6 +28,15 @@ from benchkit.errors import ParamError
 WARMUP_SCORE: float = -math.inf
 
 _KIND_NAMES = {int: "an integer", float: "a number", bool: "a boolean", str: "a string"}
+
+
+def shown(value: Any) -> str:
+    """A value as written in a TOML spec: strings in double quotes, booleans in lower case."""
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, str):
+        return json.dumps(value)
+    return repr(value)
 
 
 @dataclass(frozen=True)
@@ -79,15 +89,15 @@ class Param:
         if self.kind is float and isinstance(value, int) and not isinstance(value, bool):
             value, ok = float(value), True
         if not ok:
-            raise ParamError(f"{where}: expected {self.describe()}, got {value!r}")
+            raise ParamError(f"{where}: expected {self.describe()}, got {shown(value)}")
         if self.kind is float and not math.isfinite(value):
-            raise ParamError(f"{where}: expected {self.describe()}, got {value!r}")
+            raise ParamError(f"{where}: expected {self.describe()}, got {shown(value)}")
         if self.choices is not None and value not in self.choices:
-            raise ParamError(f"{where}: expected {self.describe()}, got {value!r}")
+            raise ParamError(f"{where}: expected {self.describe()}, got {shown(value)}")
         if (self.low is not None and value < self.low) or (
             self.high is not None and value > self.high
         ):
-            raise ParamError(f"{where}: expected {self.describe()}, got {value!r}")
+            raise ParamError(f"{where}: expected {self.describe()}, got {shown(value)}")
         return value
 
 
