@@ -1,0 +1,1 @@
+"""Tests of the spec, protocol, thresholds, store, runner and their commands."""
