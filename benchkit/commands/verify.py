@@ -33,6 +33,12 @@ def add_parser(subparsers) -> None:
                              "results store, else a temporary folder removed afterwards)")
     parser.add_argument("--workers", type=int, default=None, metavar="N",
                         help="local worker processes (default: the spec's setting)")
+    parser.add_argument("--data-root", type=Path, default=None, metavar="DIR",
+                        help="root folder of the public data for dataset TOMLs that need one "
+                             "(default: $BENCHKIT_DATA_ROOT)")
+    parser.add_argument("--spec-dir", type=Path, default=None, metavar="DIR",
+                        help="folder that relative dataset paths in the scorecard's spec are "
+                             "read from: where the original spec file was (default: .)")
     parser.add_argument("--quiet", action="store_true", help="print only the verdict line")
     parser.set_defaults(func=run)
 
@@ -40,7 +46,8 @@ def add_parser(subparsers) -> None:
 def run(args: argparse.Namespace) -> int:
     """Verify, print the differences (if any) and the verdict; return the exit status."""
     result = verify_scorecard(args.scorecard, args.tolerance, args.fresh, args.out,
-                              workers=args.workers)
+                              workers=args.workers, data_root=args.data_root,
+                              spec_dir=args.spec_dir)
     if result.reproduced:
         print(f"reproduced: all {result.n_values} values of {result.n_cells} cells agree "
               f"within {result.tolerance:g}")

@@ -1,7 +1,8 @@
 """Format a :class:`~benchkit.report.tables.Table` as markdown, LaTeX, HTML or plain text.
 
 Best values are bold in markdown (``**x**``), LaTeX (``\\textbf{x}``) and HTML (``<strong>``), and
-followed by ``*`` in plain text. All text is escaped for the target format.
+followed by ``*`` in plain text. All text is escaped for the target format (markdown too: ``<``,
+``>`` and ``&`` become HTML entities, since markdown viewers pass HTML through).
 """
 
 from __future__ import annotations
@@ -37,6 +38,8 @@ def latex_escape(text: str) -> str:
 
 
 def _markdown_escape(text: str) -> str:
+    """Pipes and stars escaped; ``& < >`` as HTML entities, so no label becomes live markup."""
+    text = text.replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")
     return text.replace("|", r"\|").replace("*", r"\*")
 
 

@@ -132,8 +132,9 @@ def verify_scorecard(
     fresh: bool = False,
     out: Path | None = None,
     *,
-    executor: str = "local",
     workers: int | None = None,
+    data_root: Path | None = None,
+    spec_dir: Path | None = None,
 ) -> VerifyResult:
     """Re-run the scorecard's spec and compare every metric with the scorecard.
 
@@ -145,6 +146,10 @@ def verify_scorecard(
     out : re-run into this folder. By default the scorecard's own folder is used when it holds
         the results store (cached cells are reused where keys match), else a temporary folder
         that is removed afterwards.
+    workers : local worker processes (default: the spec's setting).
+    data_root : root folder for dataset TOMLs that need one (else ``$BENCHKIT_DATA_ROOT``).
+    spec_dir : folder that relative dataset paths in the spec are taken from (the folder the
+        original spec file was in; default: the current folder).
 
     Raises
     ------
@@ -157,11 +162,11 @@ def verify_scorecard(
     if not (tolerance >= 0 and math.isfinite(tolerance)):
         raise DataError(f"--tolerance: expected a number >= 0, got {tolerance!r}")
     content = load_scorecard(path)
-    spec = parse_spec(content["spec"], source=f"{path}: spec")
+    spec = parse_spec(content["spec"], f"{path}: spec", base_dir=Path(spec_dir or Path.cwd()))
     target, temporary = _choose_out(path, out, fresh)
     with tempfile.TemporaryDirectory(prefix="benchkit-verify-") as tmp:
         run_dir = Path(tmp) if temporary else target
-        run_experiment(spec, run_dir, executor=executor, workers=workers, quiet=True)
+        run_experiment(spec, run_dir, workers=workers, quiet=True, data_root=data_root)
         with Store(run_dir) as store:
             actual = cell_records(store.cells_frame(), store.metrics_frame())
             fingerprints = store.latest_run().get("fingerprints", {})

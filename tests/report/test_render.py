@@ -30,6 +30,9 @@ def test_markdown_parses_back_with_bold_best():
     assert number(table[2][1]) == (0.5, None, False)
     assert table[2][0] == r"a_b\|c"  # a pipe inside a cell is escaped
     assert "> 50% of \\*cases\\*" in text
+    # markup in labels is neutralised: a markdown viewer passes raw HTML through
+    assert "&lt;script&gt;alert(1)&lt;/script&gt;" in text and "<script>" not in text
+    assert "Scores &amp; &lt;b&gt;things&lt;/b&gt;" in text
 
 
 def test_plain_marks_best_with_a_star():
