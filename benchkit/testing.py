@@ -98,21 +98,32 @@ class _Context:
         warm = self.new().warmup
         self.n_train = max(400, 3 * (warm + 1) + 100)
         self.n_test = max(300, 2 * (warm + 1) + 100)
-        self.train = make_check_data(self.n_train, 4, seed=11)
-        self.test = make_check_data(self.n_test, 4, seed=12)
+        self._train = make_check_data(self.n_train, 4, seed=11)
+        self._test = make_check_data(self.n_test, 4, seed=12)
         self._reference: tuple[Detector, np.ndarray, Any] | None = None
+
+    @property
+    def train(self) -> np.ndarray:
+        """A fresh copy of the training data (a detector that mutates it harms only its copy)."""
+        return self._train.copy()
+
+    @property
+    def test(self) -> np.ndarray:
+        """A fresh copy of the scored series."""
+        return self._test.copy()
 
     def new(self) -> Detector:
         return self.cls(**self.params)
 
     def fit_score(self, train: np.ndarray, test: np.ndarray) -> tuple[Detector, np.ndarray]:
         det = self.new()
-        return det, det.fit(train).score(test)
+        det.fit(train)  # not chained: a fit that forgets to return self fails only its check
+        return det, det.score(test)
 
     def reference(self) -> tuple[Detector, np.ndarray, Any]:
         """(instance, scores, fit return value) on writable copies of the data; computed once."""
         if self._reference is None:
-            self.train_in, self.test_in = self.train.copy(), self.test.copy()
+            self.train_in, self.test_in = self.train, self.test
             det = self.new()
             returned = det.fit(self.train_in)
             self._reference = (det, det.score(self.test_in), returned)
@@ -223,7 +234,7 @@ def _check_causality(ctx: _Context) -> str:
     cuts = sorted({warm + 1, warm + (ctx.n_test - warm) // 2, ctx.n_test - 2})
     for cut in cuts:
         for kind in ("noise", "spike"):
-            changed = ctx.test.copy()
+            changed = ctx.test
             future = changed[cut:]
             if kind == "noise":
                 future[:] = 3.0 + 5.0 * rng.normal(size=future.shape)
@@ -253,7 +264,8 @@ def _check_refit(ctx: _Context) -> str:
     _, scores, _ = ctx.reference()
     det = ctx.new()
     det.fit(make_check_data(ctx.n_train, 4, seed=13) * 2.0 + 1.0)
-    again = det.fit(ctx.train).score(ctx.test)
+    det.fit(ctx.train)
+    again = det.score(ctx.test)
     _require(np.array_equal(again, scores, equal_nan=True),
              "fitting on other data first changed the result of the second fit")
     return ""
@@ -261,19 +273,19 @@ def _check_refit(ctx: _Context) -> str:
 
 def _check_no_mutation(ctx: _Context) -> str:
     ctx.reference()
-    _require(np.array_equal(ctx.train_in, ctx.train), "fit or score modified the train array")
-    _require(np.array_equal(ctx.test_in, ctx.test), "score modified the scored series")
+    _require(np.array_equal(ctx.train_in, ctx._train), "fit or score modified the train array")
+    _require(np.array_equal(ctx.test_in, ctx._test), "score modified the scored series")
     return ""
 
 
 def _check_single_channel(ctx: _Context) -> str:
-    det, scores = ctx.fit_score(ctx.train[:, :1].copy(), ctx.test[:, :1].copy())
+    det, scores = ctx.fit_score(ctx.train[:, :1], ctx.test[:, :1])
     _check_output(scores, ctx.n_test, det.warmup)
     return "d = 1"
 
 
 def _check_constant_channel(ctx: _Context) -> str:
-    train, test = ctx.train.copy(), ctx.test.copy()
+    train, test = ctx.train, ctx.test
     train[:, 1] = 0.0
     test[:, 1] = 0.0
     test[ctx.n_test // 2 :, 1] = 1.0  # the constant channel moves to a new constant level
@@ -297,10 +309,10 @@ def _expect_value_error(action: Callable[[], Any], what: str) -> None:
 
 def _check_nan_refused(ctx: _Context) -> str:
     det, _, _ = ctx.reference()
-    bad_train = ctx.train.copy()
+    bad_train = ctx.train
     bad_train[ctx.n_train // 2, 0] = np.nan
     _expect_value_error(lambda: ctx.new().fit(bad_train), "fit")
-    bad_test = ctx.test.copy()
+    bad_test = ctx.test
     bad_test[ctx.n_test - 5, 2] = np.nan
     _expect_value_error(lambda: det.score(bad_test), "score")
     return "fit and score raise ValueError"
