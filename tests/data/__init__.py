@@ -1,0 +1,1 @@
+"""Tests of the dataset layer: loaders, validation, demo scenario, export, summary, CLI."""
