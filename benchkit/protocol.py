@@ -1,0 +1,310 @@
+"""One cell of an experiment: (dataset entity, detector variant, seed, perturbation).
+
+The steps, in order (:func:`run_cell`):
+
+1. apply the perturbation to the raw train and/or test series (before scaling);
+2. fit the scaler on train only and transform both parts;
+3. fit the detector on the scaled train series (timed: ``fit_seconds``);
+4. score the train series, and ``vstack(train[-warmup:], test)`` so that every test step gets a
+   real score from ``warmup`` steps of context; the context scores are dropped (timed:
+   ``score_seconds`` and ``points_per_second`` for the test part);
+5. check the scores (1-D, numeric, right length, finite after warm-up); bad output fails the cell;
+6. :func:`evaluate`: thresholds (oracle on the test labels; POT and a quantile calibrated on the
+   train scores after their warm-up) and the metric set for each, plus threshold-free metrics.
+
+Peak memory (``peak_memory_mb``) is the high-water mark of the worker's resident set size during
+the cell minus its size when the cell began, so it covers numpy and torch allocations alike. On
+Linux the kernel's high-water mark is reset before each cell (``/proc/self/clear_refs``) and read
+from ``/proc/self/status``; elsewhere the process-lifetime maximum from ``getrusage`` is used,
+which can under-report a cell that needs less than an earlier one.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import time
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from benchkit import metrics as _metrics
+from benchkit import registry
+from benchkit.data.model import Entity
+from benchkit.noise import Perturbation, apply_perturbation
+from benchkit.spec import ThresholdSpec
+from benchkit.thresholds import calibration_scores, pot_threshold, quantile_threshold
+from benchkit.windows import Scaler
+
+PROTOCOL_VERSION = 1
+"""Bump when a change to this module changes what a cell computes; it is part of every cell key."""
+
+THRESHOLD_FREE = "none"
+
+
+def canonical_json(value: Any) -> str:
+    """Compact JSON with sorted keys: the text that cell keys and evaluation hashes hash."""
+    return json.dumps(value, sort_keys=True, separators=(",", ":"), allow_nan=False)
+
+
+def cell_key(
+    detector: str,
+    params: dict[str, Any],
+    entity_fingerprint: str,
+    entity: str,
+    seed: int,
+    perturbation: str,
+    scaling: str,
+) -> str:
+    """sha256 hex of everything that determines a cell's scores (metric options excluded)."""
+    payload = {
+        "detector": detector,
+        "params": params,
+        "entity_fingerprint": entity_fingerprint,
+        "entity": entity,
+        "seed": seed,
+        "perturbation": perturbation,
+        "scaling": scaling,
+        "protocol": PROTOCOL_VERSION,
+    }
+    return hashlib.sha256(canonical_json(payload).encode()).hexdigest()
+
+
+@dataclass(frozen=True)
+class Evaluation:
+    """How scores become metrics: threshold settings and ``MetricOptions`` keyword arguments."""
+
+    thresholds: ThresholdSpec
+    metric_options: dict[str, Any] = field(default_factory=dict)
+
+    def fingerprint(self) -> str:
+        """Hash of the settings; a cached cell whose hash differs gets its metrics recomputed."""
+        payload = {
+            "thresholds": self.thresholds.to_dict(),
+            "metrics": self.metric_options,
+            "protocol": PROTOCOL_VERSION,
+        }
+        return hashlib.sha256(canonical_json(payload).encode()).hexdigest()
+
+    def options(self) -> Any:
+        opts = {k: tuple(v) if isinstance(v, list) else v for k, v in self.metric_options.items()}
+        return _metrics.MetricOptions(**opts)
+
+
+@dataclass
+class CellTask:
+    """Everything a worker needs to compute one cell (picklable).
+
+    With ``cached_scores`` set, the detector is not run: only :func:`evaluate` is.
+    """
+
+    key: str
+    detector: str
+    params: dict[str, Any]
+    seed: int
+    entity_name: str
+    perturbation: Perturbation
+    scaling: str
+    evaluation: Evaluation
+    time_limit: float
+    entity: Entity | None = None
+    cached_scores: dict[str, Any] | None = None
+
+
+@dataclass
+class CellResult:
+    """What a worker sends back; ``status`` is ``ok``, ``failed`` or ``timeout``.
+
+    ``measures`` holds the store's measure columns (``fit_seconds``, ``score_seconds``,
+    ``points_per_second``, ``peak_memory_mb``, ``n_train``, ``n_test``, ``warmup``).
+    """
+
+    key: str
+    status: str
+    error: str | None = None
+    scores: dict[str, np.ndarray] | None = None
+    metrics: dict[tuple[str, str], float] = field(default_factory=dict)
+    thresholds: dict[str, float] = field(default_factory=dict)
+    measures: dict[str, Any] = field(default_factory=dict)
+    evaluation: str | None = None
+    evaluated_only: bool = False
+
+
+class BadScores(Exception):
+    """A detector returned scores that break the contract (shape, dtype, non-finite)."""
+
+
+def check_scores(raw: Any, n_steps: int, warmup: int, what: str) -> np.ndarray:
+    """Return ``raw`` as float64 ``(n_steps,)`` or raise BadScores with a clear message.
+
+    Steps ``>= warmup`` must be finite; earlier steps may hold anything (they are never used).
+    """
+    arr = np.asarray(raw)
+    if arr.dtype.kind not in "fiu":
+        raise BadScores(f"{what}: scores of dtype {arr.dtype}; expected float64")
+    if arr.ndim != 1 or arr.shape[0] != n_steps:
+        raise BadScores(f"{what}: scores of shape {arr.shape}; expected ({n_steps},)")
+    arr = arr.astype(np.float64, copy=False)
+    bad = ~np.isfinite(arr[warmup:])
+    if bad.any():
+        first = int(np.argmax(bad)) + warmup
+        raise BadScores(
+            f"{what}: {int(bad.sum())} non-finite score(s) after the warm-up of {warmup} steps "
+            f"(first at step {first}: {arr[first]})"
+        )
+    return arr
+
+
+def evaluate(
+    test_scores: np.ndarray,
+    train_scores: np.ndarray,
+    labels: np.ndarray,
+    warmup: int,
+    evaluation: Evaluation,
+) -> tuple[dict[tuple[str, str], float], dict[str, float]]:
+    """Metrics of one cell's scores.
+
+    Returns
+    -------
+    metrics : ``(threshold, metric) -> value``, threshold in ``oracle``, ``pot``, ``quantile``
+        (as configured) and ``none`` for ``roc_auc``, ``pr_auc``, ``random_pa_f1``.
+    thresholds : the thresholds used (``threshold_oracle_f1``, ``threshold_pot``,
+        ``threshold_quantile``, ...) and POT fit details (``pot_*``).
+    """
+    options = evaluation.options()
+    cfg = evaluation.thresholds
+    labels = np.asarray(labels)
+    out: dict[tuple[str, str], float] = {}
+    used: dict[str, float] = {}
+    calib = calibration_scores(train_scores, warmup)
+    if "oracle" in cfg.strategies:
+        values, oracle_thresholds = _metrics.oracle_metric_set(test_scores, labels, options)
+        out.update({("oracle", m): float(v) for m, v in values.items()})
+        used.update({f"threshold_oracle_{m}": float(v) for m, v in oracle_thresholds.items()})
+    if "pot" in cfg.strategies:
+        pot = pot_threshold(calib, cfg.pot_risk, cfg.pot_initial_quantile)
+        used.update(
+            threshold_pot=pot.threshold,
+            pot_initial_threshold=pot.initial_threshold,
+            pot_gamma=pot.gamma,
+            pot_sigma=pot.sigma,
+            pot_excesses=float(pot.n_excesses),
+            pot_fallback=float(pot.method != "gpd"),
+        )
+        values = _metrics.metric_set(test_scores >= pot.threshold, labels, options)
+        out.update({("pot", m): float(v) for m, v in values.items()})
+    if "quantile" in cfg.strategies:
+        theta = quantile_threshold(calib, cfg.quantile_level)
+        used["threshold_quantile"] = theta
+        values = _metrics.metric_set(test_scores >= theta, labels, options)
+        out.update({("quantile", m): float(v) for m, v in values.items()})
+    out[(THRESHOLD_FREE, "roc_auc")] = float(_metrics.roc_auc(test_scores, labels))
+    out[(THRESHOLD_FREE, "pr_auc")] = float(_metrics.pr_auc(test_scores, labels))
+    out[(THRESHOLD_FREE, "random_pa_f1")] = float(_metrics.random_pa_f1(labels))
+    return out, used
+
+
+def run_cell(task: CellTask) -> CellResult:
+    """Compute one cell (steps 1-6 of the module docstring); errors propagate to the caller."""
+    if task.cached_scores is not None:
+        s = task.cached_scores
+        metrics, used = evaluate(
+            s["test_scores"], s["train_scores"], s["labels"], int(s["warmup"]), task.evaluation
+        )
+        return CellResult(
+            task.key,
+            "ok",
+            metrics=metrics,
+            thresholds=used,
+            evaluation=task.evaluation.fingerprint(),
+            evaluated_only=True,
+        )
+    entity = task.entity
+    if entity is None:
+        raise ValueError("a cell task without cached scores must carry its entity")
+    train, test = apply_perturbation(
+        entity.train, entity.test, task.perturbation, task.seed, entity.name
+    )
+    scaler = Scaler(task.scaling).fit(train)
+    train, test = scaler.transform(train), scaler.transform(test)
+    detector = registry.create(task.detector, **task.params)
+    t0 = time.perf_counter()
+    detector.fit(train)
+    fit_seconds = time.perf_counter() - t0
+    warmup = int(detector.warmup)
+    if not 0 <= warmup < train.shape[0]:
+        raise BadScores(f"warm-up of {warmup} steps does not fit in {train.shape[0]} train steps")
+    train_scores = check_scores(detector.score(train), train.shape[0], warmup, "train")
+    context = train[train.shape[0] - warmup :]
+    t0 = time.perf_counter()
+    raw = detector.score(np.vstack([context, test]) if warmup else test)
+    score_seconds = time.perf_counter() - t0
+    test_scores = check_scores(raw, warmup + test.shape[0], warmup, "test")[warmup:]
+    labels = np.asarray(entity.labels, dtype=np.int8)
+    metrics, used = evaluate(test_scores, train_scores, labels, warmup, task.evaluation)
+    scores = {
+        "test_scores": test_scores,
+        "train_scores": train_scores,
+        "labels": labels,
+        "warmup": np.array(warmup),
+    }
+    return CellResult(
+        task.key,
+        "ok",
+        scores=scores,
+        metrics=metrics,
+        thresholds=used,
+        measures={
+            "fit_seconds": fit_seconds,
+            "score_seconds": score_seconds,
+            "points_per_second": test.shape[0] / score_seconds if score_seconds > 0 else None,
+            "n_train": int(train.shape[0]),
+            "n_test": int(test.shape[0]),
+            "warmup": warmup,
+        },
+        evaluation=task.evaluation.fingerprint(),
+    )
+
+
+# ------------------------------------------------------------------------------- memory
+
+
+def _status_kb(field_name: str) -> int | None:
+    try:
+        with open("/proc/self/status", encoding="ascii") as fh:
+            for line in fh:
+                if line.startswith(field_name + ":"):
+                    return int(line.split()[1])
+    except OSError:
+        return None
+    return None
+
+
+class PeakMemory:
+    """Context manager: ``.mb`` = peak resident memory added during the block (see module doc)."""
+
+    def __enter__(self) -> PeakMemory:
+        self.mb: float | None = None
+        self._reset = False
+        try:
+            with open("/proc/self/clear_refs", "w", encoding="ascii") as fh:
+                fh.write("5")  # resets VmHWM to the current RSS (Linux >= 4.0)
+            self._reset = True
+        except OSError:
+            pass
+        self._start_kb = _status_kb("VmRSS") if self._reset else _maxrss_kb()
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        peak = _status_kb("VmHWM") if self._reset else _maxrss_kb()
+        if peak is not None and self._start_kb is not None:
+            self.mb = max(peak - self._start_kb, 0) / 1024.0
+
+
+def _maxrss_kb() -> int | None:
+    try:
+        import resource
+    except ImportError:  # pragma: no cover - not on POSIX
+        return None
+    return int(resource.getrusage(resource.RUSAGE_SELF).ru_maxrss)
