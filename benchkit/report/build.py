@@ -8,6 +8,7 @@ import numpy as np
 import pandas as pd
 
 from benchkit.errors import DataError
+from benchkit.metrics import f1_curve
 from benchkit.report import plots
 from benchkit.report.files import write_text_atomic
 from benchkit.report.html import build_html
@@ -109,8 +110,6 @@ def build_plots(
                 plots.plot_critical_difference(rank.data["average_rank"].dropna(), cd,
                                                folder / "critical-difference.png",
                                                rank.data.attrs.get("alpha", 0.05))))
-    from benchkit.metrics import f1_curve  # TEMP until benchkit.metrics lands
-
     pr = []
     for variant, scores in cached:
         curve = f1_curve(np.asarray(scores["test_scores"]), np.asarray(scores["labels"]))

@@ -86,7 +86,8 @@ def noise_figure(curves: pd.DataFrame, metric: str) -> Figure:
     """
     panels = sorted(curves.groupby(["kind", "apply_to"]).groups) if len(curves) else []
     n = max(len(panels), 1)
-    fig = Figure(figsize=(5.5 * n, 4.0), layout="constrained")
+    fig = Figure(figsize=(5.5 * n, 4.0))
+    fig.subplots_adjust(left=0.12 / n, right=1 - 0.03 / n, bottom=0.13, top=0.92, wspace=0.25)
     axes = fig.subplots(1, n, squeeze=False)[0]
     variants = sorted(curves["variant"].unique()) if len(curves) else []
     for ax, (kind, apply_to) in zip(axes, panels, strict=False):
@@ -182,7 +183,8 @@ def cd_figure(average_ranks: pd.Series, cd: float, alpha: float = 0.05) -> Figur
     k = max(len(ranks), 2)
     half = (len(ranks) + 1) // 2
     height = 1.2 + 0.32 * half
-    fig = Figure(figsize=(8.0, height + 0.6), layout="constrained")
+    fig = Figure(figsize=(8.0, height + 0.6))
+    fig.subplots_adjust(left=0.02, right=0.98, bottom=0.02, top=1 - 0.45 / (height + 0.6))
     ax = fig.subplots()
     ax.set_xlim(0.5 - 0.9, k + 0.5 + 0.9)
     ax.set_ylim(-(half * 0.55 + 0.6), 1.6)
@@ -232,7 +234,8 @@ def pr_figure(
     ``curves`` holds ``(variant, recall, precision)``; ``prevalence`` is the share of anomalous
     test steps (the precision of a detector that flags at random).
     """
-    fig = Figure(figsize=(6.5, 5.0), layout="constrained")
+    fig = Figure(figsize=(6.5, 5.0))
+    fig.subplots_adjust(left=0.12, right=0.97, bottom=0.11, top=0.93)
     ax = fig.subplots()
     for i, (variant, recall, precision) in enumerate(curves):
         style = series_style(i)
