@@ -174,6 +174,24 @@ def test_bootstrap_estimate_is_sklearn_f1_and_pa_estimate_is_hand_adjusted_f1():
     assert ci.low <= ci.estimate <= ci.high and pa.low <= pa.estimate <= pa.high
 
 
+@pytest.mark.parametrize(
+    ("adjust", "options"), [("point", {}), ("pa%k", {"k": 20}), ("delay", {"delay": 3})]
+)
+def test_bootstrap_adjustments_agree_with_the_metrics_package(adjust, options):
+    # internal consistency (not an outside reference): the same adjustment as
+    # benchkit.metrics, scored by sklearn's f1_score
+    from benchkit.metrics import delay_adjust, pa_k_adjust, point_adjust
+
+    pred, labels = _labelled_events(4)
+    adjusted = {
+        "point": lambda: point_adjust(pred, labels),
+        "pa%k": lambda: pa_k_adjust(pred, labels, options.get("k")),
+        "delay": lambda: delay_adjust(pred, labels, options.get("delay")),
+    }[adjust]()
+    ci = bootstrap_f1_ci(pred, labels, n_boot=50, adjust=adjust, **options)
+    assert ci.estimate == pytest.approx(f1_score(labels, adjusted), rel=1e-12)
+
+
 def test_bootstrap_interval_equals_scipy_paired_percentile_bootstrap():
     pred, labels = _labelled_events(2)
     tp, fp, fn = event_blocks(pred, labels)
