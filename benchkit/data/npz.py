@@ -69,6 +69,8 @@ def _read_members(path: Path) -> dict[str, np.ndarray]:
         raise DataError(f"{path}: no such file")
     if path.stat().st_size == 0:
         raise DataError(f"{path}: empty file")
+    if not zipfile.is_zipfile(path):
+        raise DataError(f"{path}: not a readable .npz archive (not a zip file)")
     try:
         with np.load(path, allow_pickle=False) as archive:
             names = set(archive.files)

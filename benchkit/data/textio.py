@@ -37,6 +37,8 @@ def read_csv_frame(path: Path, header: bool) -> pd.DataFrame:
         raise DataError(_describe_bad_shape(path, header) or f"{path}: cannot parse") from None
     except UnicodeDecodeError:
         raise DataError(f"{path}: not a text file (cannot decode as UTF-8)") from None
+    if header:
+        _check_header(path)
     frame = frame.iloc[: len(frame) - _trailing_blank_lines(path)]
     if len(frame) == 0:
         raise DataError(f"{path}: empty file" + (" (a header but no rows)" if header else ""))
@@ -108,6 +110,17 @@ def _describe_bad_shape(path: Path, header: bool) -> str | None:
     return (
         f"{path}: row {row}: {counts[off[0]]} fields, but {reference} has {expected} (ragged rows)"
     )
+
+
+def _check_header(path: Path) -> None:
+    """Column names must be unique (pandas would silently rename a repeat to ``name.1``)."""
+    with path.open(encoding="utf-8", errors="replace") as fh:
+        names = [n.strip().strip('"') for n in fh.readline().rstrip("\r\n").split(",")]
+    seen: set[str] = set()
+    for name in names:
+        if name in seen:
+            raise DataError(f"{path}: row 1: column name {name!r} appears twice")
+        seen.add(name)
 
 
 def _trailing_blank_lines(path: Path) -> int:

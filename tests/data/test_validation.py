@@ -85,6 +85,19 @@ def case_entities_disagree_on_channels(tmp_path):
     return root, [f"{root / 'train' / 'm2.txt'}: 2 channels, the first entity has 3"]
 
 
+def case_parquet_non_numeric(tmp_path):
+    p = tmp_path / "node.parquet"
+    pd.DataFrame({"cpu": ["1", "2", "x", "4"], "label": [0, 0, 1, 0]}).to_parquet(p)
+    # Parquet rows are records numbered from 1 (there is no header line)
+    return p, [f"{p}: row 3, column 'cpu': not a number ('x')"]
+
+
+def case_parquet_booleans(tmp_path):
+    p = tmp_path / "node.parquet"
+    pd.DataFrame({"up": [True, False, True], "label": [0, 0, 1]}).to_parquet(p)
+    return p, [f"{p}: column 'up': true/false values, expected numbers"]
+
+
 def case_npz_missing_array(tmp_path):
     p = tmp_path / "one.npz"
     np.savez(p, train=GOOD, test=GOOD)
@@ -173,6 +186,14 @@ TEXT_CASES = [
         "row 3, column 'timestamp': not a timestamp ('soon')",
     ),
     ("no_label_column", "node.csv", "cpu,mem\n1,2\n3,4\n", "no label column 'label'"),
+    (
+        "duplicate_column",
+        "node.csv",
+        "cpu,cpu,label\n1,2,0\n",
+        "row 1: column name 'cpu' appears twice",
+    ),
+    ("npz_not_a_zip", "one.npz", "junk", "not a readable .npz archive (not a zip file)"),
+    ("parquet_damaged", "node.parquet", "junk", "not a readable Parquet file"),
     ("unknown_format", "data.xlsx", "x", "unknown dataset format"),
     ("toml_unknown_key", "d.toml", 'format = "demo"\nseeds = 3\n', "unknown key 'seeds'"),
     ("toml_syntax", "d.toml", 'format = "demo\n', "not valid TOML"),
