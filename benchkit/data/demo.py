@@ -77,8 +77,8 @@ def make_demo(
     n_entities : number of gateway nodes (``pay-gw-01`` ...).
     n_channels : KPIs per node, the first ``n_channels`` of the catalogue (4 to 20).
     n_train, n_test : steps in the normal train part and the labelled test part.
-    incidents : incidents per node in the test part, as ``{kind: count}`` or a list of kinds
-      (one each); default two ``spike`` and one of every other kind.
+    incidents : incidents per node in the test part, as ``{kind: count}`` (kinds not named get
+      none) or a list of kinds (one each); default two ``spike`` and one of every other kind.
 
     Returns
     -------
@@ -121,10 +121,16 @@ def incident_counts(incidents: Mapping[str, int] | Iterable[str] | None) -> dict
         incidents = [incidents]
     if isinstance(incidents, Mapping):
         given = dict(incidents)
-    else:
+    elif isinstance(incidents, list | tuple):
         given = {}
         for kind in incidents:
-            given[kind] = given.get(kind, 0) + 1
+            key = kind if isinstance(kind, str) else repr(kind)
+            given[key] = given.get(key, 0) + 1
+    else:
+        raise DataError(
+            "demo: option incidents must be a table of counts or a list of kinds, "
+            f"got {incidents!r}"
+        )
     valid = ", ".join(INCIDENT_KINDS)
     for kind, count in given.items():
         if kind not in INCIDENT_KINDS:
@@ -239,8 +245,6 @@ def _pick_channels(
     rng: np.random.Generator, kind: str, channels: tuple[str, ...], pairs: list[tuple[str, str]]
 ) -> np.ndarray:
     if kind == "correlation-break":
-        if not pairs:
-            raise DataError("demo: correlation-break incidents need n_channels >= 4")
         pair = pairs[int(rng.integers(len(pairs)))]
         return np.array([channels.index(pair[int(rng.integers(2))])])
     lo, hi = _SHAPES[kind][1]

@@ -34,11 +34,6 @@ CHANNELS_FILE = "channels.txt"
 OPTIONS = ("missing",)
 
 
-def is_split_folder(path: Path) -> bool:
-    """Whether ``path`` is a folder holding at least one of the three split folders."""
-    return path.is_dir() and any((path / name).is_dir() for name in FOLDERS)
-
-
 def load_split_folder(root: str | Path, missing: str = "error") -> Dataset:
     """Load every entity of a split-folder root.
 

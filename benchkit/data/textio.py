@@ -50,7 +50,8 @@ def read_csv_frame(path: Path, header: bool) -> pd.DataFrame:
 
 
 def frame_to_matrix(frame: pd.DataFrame, loc: Locator) -> np.ndarray:
-    """All columns of ``frame`` as one ``(n, k)`` float64 array; a non-number names its cell.
+    """All columns of ``frame`` as one C-ordered ``(n, k)`` float64 array; a non-number names
+    its cell.
 
     Empty cells and NaN/inf texts stay NaN/inf here; the caller's missing-value policy
     decides about them.
@@ -58,10 +59,8 @@ def frame_to_matrix(frame: pd.DataFrame, loc: Locator) -> np.ndarray:
     numeric = frame.dtypes.map(pd.api.types.is_numeric_dtype).to_numpy(dtype=bool)
     bools = frame.dtypes.map(pd.api.types.is_bool_dtype).to_numpy(dtype=bool)
     if numeric.all() and not bools.any():
-        return frame.to_numpy(dtype=np.float64)
-    columns = []
-    for j, name in enumerate(frame.columns):
-        columns.append(column_to_float(frame[name], loc, j))
+        return np.ascontiguousarray(frame.to_numpy(dtype=np.float64))
+    columns = [column_to_float(frame.iloc[:, j], loc, j) for j in range(frame.shape[1])]
     return np.column_stack(columns) if columns else np.empty((len(frame), 0))
 
 

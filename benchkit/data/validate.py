@@ -31,14 +31,12 @@ class Locator:
     first_row : the row number of data row 0 (2 below a header line, 1 without).
     columns : column names for files that have them (else columns are 1-based positions).
     array : for ``.npz`` members, the member name; rows and columns are then 0-based indices.
-    column_offset : position of array column 0 among the file's columns (0-based).
     """
 
     path: str
     first_row: int = 1
     columns: tuple[str, ...] | None = None
     array: str | None = None
-    column_offset: int = 0
 
     def column(self, j: int) -> str:
         """``path: column 'cpu'`` (or ``column 3`` without names)."""
@@ -61,7 +59,7 @@ class Locator:
     def _column_name(self, j: int) -> str:
         if self.columns is not None:
             return repr(self.columns[j])
-        return str(self.column_offset + j + 1)
+        return str(j + 1)
 
 
 def default_channel_names(d: int) -> tuple[str, ...]:

@@ -77,6 +77,8 @@ def test_sizes_and_incident_counts_are_configurable():
         ({"n_entities": 2.5}, "n_entities must be an integer"),
         ({"incidents": {"meteor": 1}}, "unknown kind 'meteor'"),
         ({"incidents": {"spike": -2}}, "incidents.spike must be an integer"),
+        ({"incidents": 3}, "incidents must be a table of counts or a list of kinds"),
+        ({"incidents": [["spike"]]}, "unknown kind \"['spike']\""),
         ({"n_test": 400}, "n_test=400 is too short for 7 incidents"),
     ],
 )

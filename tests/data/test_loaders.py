@@ -24,6 +24,9 @@ def _same_arrays(a: Entity, b: Entity) -> None:
     np.testing.assert_array_equal(a.labels, b.labels)
     assert a.channels == b.channels
     assert a.train.dtype == b.train.dtype == np.float64
+    for e in (a, b):
+        assert e.train.flags.c_contiguous and e.test.flags.c_contiguous
+        assert e.labels.dtype == np.int8
 
 
 def test_export_demo_then_load_gives_identical_arrays_and_fingerprint(tmp_path, capsys):
