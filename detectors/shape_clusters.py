@@ -1,8 +1,9 @@
 """Shape-cluster detector: distance of the window ending at t to its nearest training centroid.
 
 Training windows (a random subsample) are clustered with tslearn's ``TimeSeriesKMeans``
-(Euclidean or DTW); a step's score is the distance of its causal window to the nearest
-centroid, in the same metric.
+(Euclidean metric); a step's score is the Euclidean distance of its causal window to the
+nearest centroid. DTW is not offered: tslearn compiles it on first use, which costs tens of
+seconds per worker process, and its scoring is orders of magnitude slower.
 """
 
 from __future__ import annotations
@@ -19,13 +20,10 @@ from detectors._features import derived_seed, subsample_rows
 with warnings.catch_warnings():  # tslearn warns about optional hdf5 support on import
     warnings.simplefilter("ignore", UserWarning)
     from tslearn.clustering import TimeSeriesKMeans
-    from tslearn.metrics import cdist_dtw
 
 
-def nearest_centroid_distance(windows: np.ndarray, centroids: np.ndarray, metric: str):
-    """Distance of each window ``(m, w, d)`` to its nearest centroid ``(k, w, d)``."""
-    if metric == "dtw":
-        return cdist_dtw(windows, centroids).min(axis=1)
+def nearest_centroid_distance(windows: np.ndarray, centroids: np.ndarray) -> np.ndarray:
+    """Euclidean distance of each window ``(m, w, d)`` to its nearest centroid ``(k, w, d)``."""
     flat = windows.reshape(windows.shape[0], -1)
     cent = centroids.reshape(centroids.shape[0], -1)
     sq = (
@@ -45,8 +43,6 @@ class ShapeClusters(Detector):
     params = (
         Param("window", int, 16, "points per window", low=2),
         Param("n_clusters", int, 8, "number of centroids", low=1, high=256),
-        Param("metric", str, "euclidean", "distance between windows",
-              choices=("euclidean", "dtw")),
         Param("max_train_windows", int, 400, "at most this many training windows clustered",
               low=2),
         Param("max_iter", int, 20, "k-means iterations", low=1),
@@ -70,7 +66,7 @@ class ShapeClusters(Detector):
             return self
         model = TimeSeriesKMeans(
             n_clusters=k,
-            metric=self.metric,
+            metric="euclidean",
             max_iter=self.max_iter,
             random_state=derived_seed(rng),
             n_init=1,
@@ -86,7 +82,5 @@ class ShapeClusters(Detector):
         out = np.full(series.shape[0], WARMUP_SCORE)
         if series.shape[0] >= self.window:
             windows = sliding_windows(series, self.window)
-            out[self.window - 1 :] = nearest_centroid_distance(
-                windows, self.centroids_, self.metric
-            )
+            out[self.window - 1 :] = nearest_centroid_distance(windows, self.centroids_)
         return out
