@@ -2,11 +2,14 @@
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from metrics_cases import random_labels
 
 from benchkit.metrics import (
     MetricInputError,
     delay_adjust,
+    labels_to_events,
     pa_k_adjust,
     pa_k_f1_auc,
     point_adjust,
@@ -136,3 +139,32 @@ def test_adjust_rejects_bad_parameters(call, needle):
     with pytest.raises(MetricInputError) as info:
         call(np.array([0, 1, 0, 1]), np.array([0, 1, 1, 0]))
     assert needle in str(info.value)
+
+
+def _by_definition(pred, labels, rule):
+    """Adjust event by event, straight from the definitions (slow loop, for reference)."""
+    out = pred.astype(bool).copy()
+    for start, end in labels_to_events(labels):
+        keep = rule(pred[start : end + 1].astype(bool))
+        out[start : end + 1] = keep if keep is not None else out[start : end + 1]
+    return out
+
+
+@settings(max_examples=80, deadline=None)
+@given(
+    bits=st.lists(st.tuples(st.integers(0, 1), st.integers(0, 1)), min_size=1, max_size=50),
+    k=st.floats(0, 100),
+    delay=st.integers(0, 6),
+)
+def test_vectorised_adjustments_equal_the_definitions(bits, k, delay):
+    labels = np.array([b[0] for b in bits])
+    pred = np.array([b[1] for b in bits])
+    # reference: Xu et al. 2018 (any hit), Kim et al. 2022 (hit share strictly above K %),
+    # and the delay rule (a hit among the first delay + 1 points, else the event is dropped)
+    want_pa = _by_definition(pred, labels, lambda hit: True if hit.any() else None)
+    want_pak = _by_definition(pred, labels,
+                              lambda hit: True if hit.sum() * 100 > k * len(hit) else None)
+    want_delay = _by_definition(pred, labels, lambda hit: bool(hit[: delay + 1].any()))
+    np.testing.assert_array_equal(point_adjust(pred, labels), want_pa)
+    np.testing.assert_array_equal(pa_k_adjust(pred, labels, k), want_pak)
+    np.testing.assert_array_equal(delay_adjust(pred, labels, delay), want_delay)

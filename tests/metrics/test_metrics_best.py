@@ -12,7 +12,8 @@ from sklearn.metrics import precision_recall_curve
 from benchkit.metrics import MetricInputError, best_f1, f1_curve, prf
 
 ADJUSTS = [(None, {}), ("point", {}), ("pa%k", {"k": 0}), ("pa%k", {"k": 20}),
-           ("pa%k", {"k": 50}), ("pa%k", {"k": 100}), ("delay", {"delay": 0}),
+           ("pa%k", {"k": 50}), ("pa%k", {"k": 100}), ("pa%k", {"k": 12.5}),
+           ("pa%k", {"k": 33}), ("delay", {"delay": 0}),
            ("delay", {"delay": 3})]
 
 
