@@ -40,7 +40,7 @@ LOG_2PI = math.log(2.0 * math.pi)
 # Decoder variances live in [1e-3, 1e2] (data are z-scored on train); latent ones in [e^-8, e^4].
 OUTPUT_LOGVAR = (math.log(1e-3), math.log(1e2))
 LATENT_LOGVAR = (-8.0, 4.0)
-SCORE_CHUNK = 4096  # windows scored per forward pass: bounds memory for any series length
+SCORE_CHUNK = 1024  # windows scored per forward pass: bounds memory for any series length
 VALIDATION_CAP = 2048  # validation windows evaluated per epoch (evenly spaced)
 FILE_FORMAT = "benchkit.torch-detector/1"
 
@@ -63,7 +63,8 @@ def torch_session(seed: int, threads: int = 0) -> Iterator[None]:
     Parameters
     ----------
     seed : seeds python's ``random``, numpy's legacy global generator and torch's CPU generator.
-    threads : intra-op threads; 0 means every available core.
+    threads : intra-op threads; 0 keeps the process's setting (torch's default is one thread
+        per core; the experiment runner pins one per worker, so workers do not oversubscribe).
 
     Thread count, deterministic-algorithm mode and all three global random states are restored
     on exit.
@@ -73,7 +74,7 @@ def torch_session(seed: int, threads: int = 0) -> Iterator[None]:
     old_warn_only = torch.is_deterministic_algorithms_warn_only_enabled()
     old_python = random.getstate()
     old_numpy = np.random.get_state()
-    torch.set_num_threads(threads if threads > 0 else available_cores())
+    torch.set_num_threads(threads if threads > 0 else old_threads)
     torch.use_deterministic_algorithms(True)
     try:
         with torch.random.fork_rng(devices=[]):
@@ -341,7 +342,7 @@ def training_params(window: int = 32, hidden_size: int = 32) -> tuple[Param, ...
         Param("clip_norm", float, 5.0, "gradient norm clipping threshold", 1e-6, 1e6),
         Param("score_samples", int, 0, "posterior draws per score (0 = posterior mean)", 0, 1000),
         Param("seed", int, 0, "random seed (python, numpy, torch)", 0, 2**63 - 1),
-        Param("threads", int, 0, "torch CPU threads (0 = every available core)", 0, 1024),
+        Param("threads", int, 0, "torch CPU threads (0 = the process setting)", 0, 1024),
         Param("progress", bool, False, "per-epoch progress bar on a terminal"),
     )
 

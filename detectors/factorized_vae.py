@@ -44,6 +44,7 @@ class FactorizedSequenceVae(nn.Module):
     ) -> None:
         super().__init__()
         self.static_size = static_size
+        self.dynamic_size = dynamic_size
         self.learned_prior = learned_prior
         if static_size:
             self.static_rnn = nn.LSTM(n_channels, hidden_size, batch_first=True, bidirectional=True)
