@@ -19,6 +19,7 @@ that a cell's result does not depend on where or beside what it ran.
 from __future__ import annotations
 
 import ctypes
+import math
 import multiprocessing
 import os
 import sys
@@ -188,6 +189,8 @@ def _raise_in_thread(thread_id: int, exc: type[BaseException] | None) -> None:
 
 def _call_with_limit(fn: Callable[[], CellResult], limit: float) -> CellResult:
     """Run ``fn`` in this thread; raise CellTimeout in it once ``limit`` seconds have passed."""
+    if not math.isfinite(limit):
+        return fn()
     thread_id = threading.get_ident()
     lock = threading.Lock()
     state = {"done": False, "fired": False}
@@ -259,20 +262,18 @@ def _describe(exc: BaseException) -> str:
 # ------------------------------------------------------------------------------- local pool
 
 
-def _worker_main(conn: Any, driver_pid: int) -> None:
+def _worker_main(conn: Any) -> None:
     """Loop of a local worker process: receive a task, send its result, until told to stop."""
+    parent = os.getppid()
 
-    def watch_driver() -> None:  # a SIGKILLed driver must not leave workers behind
-        while True:
-            time.sleep(0.5)
-            try:
-                os.kill(driver_pid, 0)
-            except ProcessLookupError:
-                os._exit(1)
-            except PermissionError:
-                pass
+    def watch_parent() -> None:
+        # a SIGKILLed driver must not leave workers behind: the kernel re-parents them at once
+        # (even while the dead driver is not reaped yet), so a changed parent means it is gone
+        while os.getppid() == parent:
+            time.sleep(0.25)
+        os._exit(1)
 
-    threading.Thread(target=watch_driver, daemon=True).start()
+    threading.Thread(target=watch_parent, daemon=True).start()
     while True:
         try:
             message = conn.recv()
@@ -286,7 +287,7 @@ def _worker_main(conn: Any, driver_pid: int) -> None:
 class _Worker:
     def __init__(self, ctx: Any) -> None:
         self.conn, child = ctx.Pipe()
-        self.process = ctx.Process(target=_worker_main, args=(child, os.getpid()), daemon=True)
+        self.process = ctx.Process(target=_worker_main, args=(child,), daemon=True)
         self.process.start()
         child.close()
         self.task: CellTask | None = None
@@ -300,9 +301,12 @@ class _Worker:
 
 
 def _context() -> Any:
-    try:
+    """Fork on Linux (workers inherit the imported harness and detectors at no cost); elsewhere
+    a fork server that has imported them once."""
+    if sys.platform.startswith("linux"):
+        return multiprocessing.get_context("fork")
+    try:  # pragma: no cover - not on Linux
         ctx = multiprocessing.get_context("forkserver")
-        # workers fork from a server that has imported the harness and the built-in detectors
         ctx.set_forkserver_preload(["benchkit.runner", *registry.BUILTIN_MODULES])
         return ctx
     except ValueError:  # pragma: no cover - platforms without forkserver
@@ -312,15 +316,20 @@ def _context() -> Any:
 def run_local(tasks: Iterable[CellTask], workers: int) -> Iterator[CellResult]:
     """Run tasks on ``workers`` local processes; yield results as they finish.
 
+    The workers start at once, before the caller starts a progress bar (or any other thread).
     A worker that dies (a crash in native code, the OOM killer) fails its cell; one still
     busy a grace period (:func:`hard_kill_grace`) past the cell's time limit is killed
     (status ``timeout``). Either way a fresh worker takes its place.
     """
     queue = deque(tasks)
     if not queue:
-        return
+        return iter(())
     ctx = _context()
     pool = [_Worker(ctx) for _ in range(max(1, min(workers, len(queue))))]
+    return _drive(ctx, pool, queue)
+
+
+def _drive(ctx: Any, pool: list[_Worker], queue: deque) -> Iterator[CellResult]:
     try:
         while True:
             for w in pool:
@@ -333,7 +342,12 @@ def run_local(tasks: Iterable[CellTask], workers: int) -> Iterator[CellResult]:
             busy = [w for w in pool if w.task is not None]
             if not busy:
                 return
-            timeout = max(0.0, min(w.deadline for w in busy) - time.monotonic())
+            first_deadline = min(w.deadline for w in busy)
+            timeout = (
+                max(0.0, first_deadline - time.monotonic())
+                if math.isfinite(first_deadline)
+                else None
+            )
             ready = set(wait([w.conn for w in busy] + [w.process.sentinel for w in busy], timeout))
             for i, w in enumerate(pool):
                 if w.task is None:

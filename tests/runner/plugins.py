@@ -6,11 +6,12 @@ pytest and of every worker process it starts.
 
 from __future__ import annotations
 
+import os
 import time
 
 import numpy as np
 
-from benchkit.detector import Detector, Param, check_series
+from benchkit.detector import WARMUP_SCORE, Detector, Param, check_series
 
 
 class _Base(Detector):
@@ -77,4 +78,41 @@ class Windowed(_Base):
     params = (*_Base.params, Param("window", int, 8, "window length", low=2))
 
     def score(self, series: np.ndarray) -> np.ndarray:
+        return self._distance(series)
+
+
+class Echo(_Base):
+    """Scores each step with its (scaled) first channel; the first ``window - 1`` are warm-up."""
+
+    name = "test-echo"
+    params = (*_Base.params, Param("window", int, 5, "warm-up length + 1", low=1))
+
+    def score(self, series: np.ndarray) -> np.ndarray:
+        out = check_series(series)[:, 0].copy()
+        out[: self.window - 1] = WARMUP_SCORE
+        return out
+
+
+class Crashing(_Base):
+    """Ends its process abruptly in fit, as a crash in native code would."""
+
+    name = "test-crashing"
+
+    def fit(self, train: np.ndarray) -> Crashing:
+        os._exit(9)
+
+    def score(self, series: np.ndarray) -> np.ndarray:  # pragma: no cover - never reached
+        return self._distance(series)
+
+
+class Stuck(_Base):
+    """Blocks in one long C call (``time.sleep``), which no in-thread timer can interrupt."""
+
+    name = "test-stuck"
+
+    def fit(self, train: np.ndarray) -> Stuck:
+        time.sleep(60)
+        return self
+
+    def score(self, series: np.ndarray) -> np.ndarray:  # pragma: no cover - never reached
         return self._distance(series)
