@@ -44,6 +44,7 @@ NOISE_UNITS = {
     "missing": "missing-value rate (fraction of steps)",
     "drift": "gain drift level (gain change by series end, × N(0,1) draw)",
 }
+CHAR_INCHES = 0.075  # width of one character of a "small" label, roughly, for layout
 BOUNDED = ("f1", "precision", "recall", "auc", "event_recall")
 
 
@@ -177,39 +178,47 @@ def plot_critical_difference(
 
 def cd_figure(average_ranks: pd.Series, cd: float, alpha: float = 0.05) -> Figure:
     """Critical-difference diagram: average ranks on one axis (1 = best, at the left), detectors
-    joined by a bar when their ranks differ by less than the Nemenyi critical difference ``cd``."""
+    joined by a bar when their ranks differ by less than the Nemenyi critical difference ``cd``.
+
+    The figure widens so that the longest detector label fits beside the axis.
+    """
     order = average_ranks.sort_values()
     names, ranks = list(order.index), order.to_numpy(float)
     k = max(len(ranks), 2)
     half = (len(ranks) + 1) // 2
+    labels = [f"{name} ({r:.2f})" for name, r in zip(names, ranks, strict=True)]
+    label_in = 0.15 + CHAR_INCHES * max((len(t) for t in labels), default=0)
+    width = max(8.0, 2 * label_in + 4.0)
+    unit = (k - 1) / (width - 2 * label_in - 0.4)  # rank units per inch
+    margin = (label_in + 0.2) * unit
     height = 1.2 + 0.32 * half
-    fig = Figure(figsize=(8.0, height + 0.6))
-    fig.subplots_adjust(left=0.02, right=0.98, bottom=0.02, top=1 - 0.45 / (height + 0.6))
+    fig = Figure(figsize=(width, height + 0.6))
+    fig.subplots_adjust(left=0.0, right=1.0, bottom=0.02, top=1 - 0.45 / (height + 0.6))
     ax = fig.subplots()
-    ax.set_xlim(0.5 - 0.9, k + 0.5 + 0.9)
+    ax.set_xlim(1 - margin, k + margin)
     ax.set_ylim(-(half * 0.55 + 0.6), 1.6)
     ax.hlines(0, 1, k, color="#000000", linewidth=1)
     ticks = np.arange(1, k + 1)
     ax.vlines(ticks, 0, 0.12, color="#000000", linewidth=1)
     for t in ticks:
         ax.text(t, 0.2, str(t), ha="center", va="bottom", fontsize="small")
-    for i, (name, r) in enumerate(zip(names, ranks, strict=True)):
+    for i, (label, r) in enumerate(zip(labels, ranks, strict=True)):
         left = i < half
         row = -(i + 1 if left else len(ranks) - i) * 0.55
-        end = 0.5 - 0.1 if left else k + 0.5 + 0.1
+        end = 1 - 0.1 * unit if left else k + 0.1 * unit
         ax.plot([r, r, end], [0, row, row], color=OKABE_ITO[5], linewidth=1)
-        ax.text(
-            end - 0.05 if left else end + 0.05, row, f"{name} ({r:.2f})",
-            ha="right" if left else "left", va="center", fontsize="small",
-        )
+        ax.text(end - 0.05 * unit if left else end + 0.05 * unit, row, label,
+                ha="right" if left else "left", va="center", fontsize="small")
     for g, group in enumerate(tied_groups(order, cd) if np.isfinite(cd) else []):
         y = -0.18 - 0.14 * g
         lo, hi = order[group[0]], order[group[-1]]
         ax.plot([lo - 0.03, hi + 0.03], [y, y], color=OKABE_ITO[6], linewidth=3)
     if np.isfinite(cd):
-        ax.plot([1, 1 + cd], [1.05, 1.05], color="#000000", linewidth=2)
-        ax.text(1 + cd / 2, 1.15, f"CD = {cd:.2f} (Nemenyi, α = {alpha:g})", ha="center",
-                va="bottom", fontsize="small")
+        text = f"CD = {cd:.2f} (Nemenyi, α = {alpha:g})"
+        if cd > k - 1:
+            text += ": wider than the rank range, no pair differs significantly"
+        ax.plot([1, 1 + min(cd, k - 1)], [1.05, 1.05], color="#000000", linewidth=2)
+        ax.text(1, 1.15, text, ha="left", va="bottom", fontsize="small")
     ax.set_xlabel("average rank over entities (1 = best)")
     ax.xaxis.set_label_position("top")
     ax.set_xticks([])
