@@ -18,6 +18,7 @@ that a cell's result does not depend on where or beside what it ran.
 
 from __future__ import annotations
 
+import contextlib
 import ctypes
 import math
 import multiprocessing
@@ -405,39 +406,50 @@ def _shut_down(pool: list[_Worker]) -> None:
 # ------------------------------------------------------------------------------- dask
 
 
-def run_dask(
-    tasks: Iterable[CellTask], workers: int, scheduler: str | None
-) -> Iterator[CellResult]:
-    """Run tasks on a Dask cluster (``scheduler`` address, or a LocalCluster on loopback)."""
-    import logging
+class DaskSession:
+    """Cells on Dask distributed: the cluster at ``scheduler``, or a LocalCluster on loopback.
 
-    from distributed import Client, LocalCluster, as_completed
+    A scheduler address is connected to at once, so that a wrong address fails before anything
+    is written; a local cluster starts only when there is something to run.
+    """
 
-    tasks = list(tasks)
-    if not tasks:
-        return
-    cluster = None
-    try:
+    def __init__(self, workers: int, scheduler: str | None) -> None:
+        from distributed import Client
+
+        self.workers, self.cluster, self.client = workers, None, None
         if scheduler:
             try:
-                client = Client(scheduler, timeout="20s")
-            except (OSError, TimeoutError) as exc:
+                self.client = Client(scheduler, timeout="10s")
+            except (OSError, TimeoutError, ValueError) as exc:  # ValueError: malformed address
                 raise BenchkitInputError(
                     f"--scheduler {scheduler}: cannot connect: {exc}"
                 ) from None
-        else:
-            cluster = LocalCluster(
-                n_workers=max(1, workers),
+
+    def _connect(self) -> Any:
+        if self.client is None:
+            import logging
+
+            from distributed import Client, LocalCluster
+
+            self.cluster = LocalCluster(
+                n_workers=max(1, self.workers),
                 threads_per_worker=1,
                 processes=True,
                 host="127.0.0.1",
                 dashboard_address=None,
                 silence_logs=logging.ERROR,
             )
-            client = Client(cluster)
-    except BenchkitInputError:
-        raise
-    try:
+            self.client = Client(self.cluster)
+        return self.client
+
+    def run(self, tasks: Iterable[CellTask]) -> Iterator[CellResult]:
+        """Submit every task (each entity sent to the cluster once); yield results as they end."""
+        from distributed import as_completed
+
+        tasks = list(tasks)
+        if not tasks:
+            return
+        client = self._connect()
         scattered: dict[int, Any] = {}
         futures = {}
         for task in tasks:
@@ -454,10 +466,18 @@ def run_dask(
             except Exception as exc:  # a worker lost mid-cell, for example
                 result = CellResult(task.key, "failed", error=f"dask: {_describe(exc)}")
             yield result
-    finally:
-        client.close()
-        if cluster is not None:
-            cluster.close()
+
+    def close(self) -> None:
+        if self.client is not None:
+            self.client.close()
+        if self.cluster is not None:
+            self.cluster.close()
+
+    def __enter__(self) -> DaskSession:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
 
 
 # ------------------------------------------------------------------------------- the driver
@@ -605,61 +625,51 @@ def run_experiment(
     plan = expand_grid(spec, datasets)
     out = Path(out)
     evaluation = Evaluation(spec.thresholds, dict(spec.metrics))
-    eval_hash = evaluation.fingerprint()
     fingerprints = {(d.name, e.name): e.fingerprint() for d in datasets for e in d.entities}
-    with Store(out, create=True) as store:
-        store.remove_partial_files()
-        done = store.completed()
-        run_id = store.begin_run(
-            spec.name,
-            spec.to_toml(),
-            spec.to_dict(),
-            environment(),
-            fingerprints,
-            [(c.key, c.variant) for c in plan],
+    with contextlib.ExitStack() as stack:
+        session = (
+            stack.enter_context(DaskSession(workers, scheduler)) if executor == "dask" else None
         )
+        store = stack.enter_context(Store(out, create=True))
+        store.remove_partial_files()
+        grid = [(c.key, c.variant) for c in plan]
+        run_id = store.begin_run(spec.name, spec.to_toml(), spec.to_dict(), environment(),
+                                 fingerprints, grid)  # fmt: skip
         summary = RunSummary(out=out, run_id=run_id, n_cells=len(plan))
-        by_key = {cell.key: cell for cell in plan}
-        tasks: list[CellTask] = []
-        for cell in plan:
-            if cell.key in done and done[cell.key] == eval_hash:
-                summary.n_cached += 1
-                continue
-            cached = store.load_scores(cell.key) if cell.key in done else None
-            tasks.append(
-                CellTask(
-                    cell.key,
-                    cell.detector.name,
-                    cell.params,
-                    cell.seed,
-                    cell.entity.name,
-                    cell.perturbation,
-                    spec.scaling,
-                    evaluation,
-                    spec.execution.cell_time_limit,
-                    cell.entity,
-                    cached,
-                )
-            )
-        if executor == "dask":
-            results = run_dask(tasks, workers, scheduler)
-        else:
-            results = run_local(tasks, workers)
+        tasks = _tasks(store, plan, spec, evaluation, summary)
+        results = session.run(tasks) if session is not None else run_local(tasks, workers)
         bar = _progress(summary.n_cells, summary.n_cached, quiet)
+        by_key = {cell.key: cell for cell in plan}
         try:
             for result in results:
                 _record(store, run_id, by_key[result.key], spec.scaling, result, summary)
                 bar.update(1)
-                bar.set_postfix(
-                    done=summary.n_computed + summary.n_rescored,
-                    cached=summary.n_cached,
-                    failed=summary.n_failed + summary.n_timeout,
-                )
+                bar.set_postfix(done=summary.n_computed + summary.n_rescored,
+                                cached=summary.n_cached,
+                                failed=summary.n_failed + summary.n_timeout)  # fmt: skip
         finally:
             bar.close()
         summary.seconds = time.perf_counter() - started
         store.finish_run(run_id, summary.as_dict())
     return summary
+
+
+def _tasks(store: Store, plan: list[PlannedCell], spec: ExperimentSpec, evaluation: Evaluation,
+           summary: RunSummary) -> list[CellTask]:  # fmt: skip
+    """Tasks for the cells not done yet; cells done under other evaluation settings are only
+    re-evaluated from their cached scores. Counts the cached cells into ``summary``."""
+    done = store.completed()
+    eval_hash = evaluation.fingerprint()
+    tasks = []
+    for cell in plan:
+        if done.get(cell.key, "") == eval_hash:
+            summary.n_cached += 1
+            continue
+        cached = store.load_scores(cell.key) if cell.key in done else None
+        tasks.append(CellTask(cell.key, cell.detector.name, cell.params, cell.seed,
+                              cell.entity.name, cell.perturbation, spec.scaling, evaluation,
+                              spec.execution.cell_time_limit, cell.entity, cached))  # fmt: skip
+    return tasks
 
 
 def _record(

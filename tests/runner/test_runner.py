@@ -170,3 +170,27 @@ def test_local_and_dask_executors_give_identical_metrics(tmp_path):
     dask = run_experiment(spec, tmp_path / "dask", executor="dask", workers=2, quiet=True)
     assert local.n_computed == dask.n_computed == 16 and dask.n_failed == 0
     pd.testing.assert_frame_equal(_frame(tmp_path / "dask"), _frame(tmp_path / "local"))
+
+
+@pytest.mark.parametrize(
+    ("extra", "message"),
+    [
+        (["--executor", "dask", "--scheduler", "nonsense"], "--scheduler nonsense: cannot connect"),
+        (["--workers", "two"], '--workers: expected an integer >= 1, got "two"'),
+    ],
+)
+def test_bad_run_options_are_one_line_and_write_nothing(tmp_path, capsys, extra, message):
+    spec = write_spec(tmp_path / "spec.toml", [{"name": "random"}])
+    status = main(["run", str(spec), "--out", str(tmp_path / "out"), "--quiet", *extra])
+    err = capsys.readouterr().err
+    assert status == 2 and err.startswith(f"benchkit: error: {message}") and err.count("\n") == 1
+    assert not (tmp_path / "out").exists()
+
+
+def test_an_unrelated_out_folder_is_refused(tmp_path, capsys):
+    spec = write_spec(tmp_path / "spec.toml", [{"name": "random"}])
+    (tmp_path / "mine").mkdir()
+    (tmp_path / "mine" / "notes.txt").write_text("keep me")
+    assert main(["run", str(spec), "--out", str(tmp_path / "mine"), "--quiet"]) == 2
+    assert "holds no benchkit results" in capsys.readouterr().err
+    assert sorted(p.name for p in (tmp_path / "mine").iterdir()) == ["notes.txt"]
