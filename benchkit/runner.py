@@ -175,6 +175,9 @@ def expand_grid(spec: ExperimentSpec, datasets: list[Dataset]) -> list[PlannedCe
 # ------------------------------------------------------------------------------- in the worker
 
 
+RESEND_SECONDS = 0.5
+
+
 class CellTimeout(BaseException):
     """Raised inside a cell's thread when it runs past its time limit.
 
@@ -189,30 +192,48 @@ def _raise_in_thread(thread_id: int, exc: type[BaseException] | None) -> None:
 
 
 def _call_with_limit(fn: Callable[[], CellResult], limit: float) -> CellResult:
-    """Run ``fn`` in this thread; raise CellTimeout in it once ``limit`` seconds have passed."""
+    """Run ``fn`` in this thread; raise CellTimeout in it once ``limit`` seconds have passed.
+
+    The exception is sent again every :data:`RESEND_SECONDS` until ``fn`` ends, because an
+    exception that lands in a callback (a garbage-collector hook, a ``__del__``) is swallowed
+    there. A cell that ran past its limit is a timeout even if it then returned normally.
+    """
     if not math.isfinite(limit):
         return fn()
     thread_id = threading.get_ident()
     lock = threading.Lock()
-    state = {"done": False, "fired": False}
+    finished = threading.Event()
+    fired = False
 
-    def fire() -> None:
-        with lock:
-            if not state["done"]:
-                state["fired"] = True
+    def watch() -> None:
+        nonlocal fired
+        wait = limit
+        while not finished.wait(wait):
+            with lock:
+                if finished.is_set():
+                    return
+                fired = True
                 _raise_in_thread(thread_id, CellTimeout)
+            wait = RESEND_SECONDS
 
-    timer = threading.Timer(limit, fire)
-    timer.daemon = True
-    timer.start()
+    watcher = threading.Thread(target=watch, daemon=True)
+    watcher.start()
     try:
-        return fn()
+        result = fn()
     finally:
         with lock:
-            state["done"] = True
-            if state["fired"]:
+            finished.set()
+            if fired:
                 _raise_in_thread(thread_id, None)  # drop an exception not delivered yet
-        timer.cancel()
+    if fired:
+        raise CellTimeout
+    return result
+
+
+def _ignore_swallowed_timeouts(unraisable: Any, _default: Any = sys.unraisablehook) -> None:
+    """``sys.unraisablehook``: stay silent about a CellTimeout that a callback swallowed."""
+    if not isinstance(unraisable.exc_value, CellTimeout):
+        _default(unraisable)
 
 
 def _limit_threads() -> None:
@@ -231,7 +252,13 @@ def execute_task(task: CellTask, entity: Entity | None = None) -> CellResult:
         os.environ[var] = "1"  # read by libraries imported later (torch reads it at import)
     if entity is not None:
         task.entity = entity
+    sys.unraisablehook = _ignore_swallowed_timeouts
     _limit_threads()
+    if task.cached_scores is None:
+        try:  # import the detector (and the registry's built-ins) outside the time limit
+            registry.get(task.detector)
+        except Exception as exc:
+            return CellResult(task.key, "failed", error=_describe(exc))
     memory = PeakMemory()
     try:
         with memory:

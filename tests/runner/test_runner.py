@@ -162,13 +162,22 @@ def test_failing_plug_ins_fail_only_their_cells(tmp_path, capsys):
     assert any(line.startswith("failed: raising on demo/") for line in captured.err.splitlines())
 
 
-def test_local_and_dask_executors_give_identical_metrics(tmp_path):
+def test_local_and_dask_executors_give_identical_metrics_and_time_limits(tmp_path):
+    detectors = [
+        *BASIC,
+        {"name": "pca-residual"},
+        {"name": "runner.plugins:Sleepy", "label": "sleepy", "params": {"pause": 60.0}},
+    ]
     spec = tiny_spec(
-        BASIC + [{"name": "pca-residual"}], sweep=[{"kind": "multiplicative", "levels": [0, 0.2]}]
+        detectors,
+        execution={"cell_time_limit": 5.0},
+        sweep=[{"kind": "multiplicative", "levels": [0, 0.2]}],
     )
     local = run_experiment(spec, tmp_path / "local", workers=2, quiet=True)
     dask = run_experiment(spec, tmp_path / "dask", executor="dask", workers=2, quiet=True)
-    assert local.n_computed == dask.n_computed == 16 and dask.n_failed == 0
+    for summary in (local, dask):
+        assert (summary.n_computed, summary.n_timeout, summary.n_failed) == (16, 4, 0)
+        assert {f[0] for f in summary.failures} == {"sleepy"}
     pd.testing.assert_frame_equal(_frame(tmp_path / "dask"), _frame(tmp_path / "local"))
 
 
