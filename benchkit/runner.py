@@ -7,10 +7,11 @@ on. Running the same spec into the same OUT again computes only what is missing 
 are reused; failed and timed-out cells are tried again), and cells whose metric or threshold
 settings changed get their metrics recomputed from the cached scores.
 
-Time limits: a timer in the worker raises :class:`CellTimeout` in the thread running the cell at
-the limit (this interrupts Python code between bytecodes, not a single long C call). The local
-pool also kills a worker that is still busy a grace period after the limit and starts a fresh one;
-Dask has no such hard stop.
+Time limits: a watcher thread in the worker raises :class:`CellTimeout` in the thread running
+the cell at the limit, and again every half second until the cell stops (this interrupts Python
+code between bytecodes, not a single long C call). The local pool also kills a worker that is
+still busy a grace period after the limit and starts a fresh one; Dask has no such hard stop, so
+there a cell stuck in one C call is marked ``timeout`` only when that call returns.
 
 Threads: every cell runs with one BLAS/OpenMP thread and one torch thread, in every executor, so
 that a cell's result does not depend on where or beside what it ran.
@@ -253,16 +254,16 @@ def execute_task(task: CellTask, entity: Entity | None = None) -> CellResult:
     if entity is not None:
         task.entity = entity
     sys.unraisablehook = _ignore_swallowed_timeouts
-    _limit_threads()
     if task.cached_scores is None:
         try:  # import the detector (and the registry's built-ins) outside the time limit
             registry.get(task.detector)
         except Exception as exc:
             return CellResult(task.key, "failed", error=_describe(exc))
+    _limit_threads()  # after the imports: torch may have just been loaded
     memory = PeakMemory()
     try:
         with memory:
-            result = _call_with_limit(lambda: _run_and_limit_torch(task), task.time_limit)
+            result = _call_with_limit(lambda: run_cell(task), task.time_limit)
     except CellTimeout:
         return CellResult(
             task.key, "timeout", error=f"cell ran past its time limit of {task.time_limit:g} s"
@@ -272,11 +273,6 @@ def execute_task(task: CellTask, entity: Entity | None = None) -> CellResult:
     if not result.evaluated_only:
         result.measures["peak_memory_mb"] = memory.mb
     return result
-
-
-def _run_and_limit_torch(task: CellTask) -> CellResult:
-    _limit_threads()  # a detector module may have imported torch just now
-    return run_cell(task)
 
 
 def _describe(exc: BaseException) -> str:
@@ -360,13 +356,9 @@ def run_local(tasks: Iterable[CellTask], workers: int) -> Iterator[CellResult]:
 def _drive(ctx: Any, pool: list[_Worker], queue: deque) -> Iterator[CellResult]:
     try:
         while True:
-            for w in pool:
+            for i, w in enumerate(pool):
                 if w.task is None and queue:
-                    w.task = queue.popleft()
-                    w.conn.send(w.task)
-                    w.deadline = (
-                        time.monotonic() + w.task.time_limit + hard_kill_grace(w.task.time_limit)
-                    )
+                    pool[i] = _dispatch(ctx, w, queue.popleft())
             busy = [w for w in pool if w.task is not None]
             if not busy:
                 return
@@ -386,10 +378,27 @@ def _drive(ctx: Any, pool: list[_Worker], queue: deque) -> Iterator[CellResult]:
                 w.task = None
                 if replace:
                     w.kill()
-                    pool[i] = _Worker(ctx)
+                    if queue:
+                        pool[i] = _Worker(ctx)
                 yield result
     finally:
         _shut_down(pool)
+
+
+def _dispatch(ctx: Any, w: _Worker, task: CellTask) -> _Worker:
+    """Send ``task`` to idle worker ``w`` (replaced first if it died while idle)."""
+    if not w.process.is_alive():
+        w.kill()
+        w = _Worker(ctx)
+    try:
+        w.conn.send(task)
+    except OSError:  # it died just now: one fresh worker, one more try
+        w.kill()
+        w = _Worker(ctx)
+        w.conn.send(task)
+    w.task = task
+    w.deadline = time.monotonic() + task.time_limit + hard_kill_grace(task.time_limit)
+    return w
 
 
 def _collect(w: _Worker, ready: set) -> tuple[CellResult | None, bool]:
