@@ -33,7 +33,7 @@ from benchkit import metrics as _metrics
 from benchkit import registry
 from benchkit.data.model import Entity
 from benchkit.noise import Perturbation, apply_perturbation
-from benchkit.spec import ThresholdSpec
+from benchkit.spec import ThresholdSpec, metric_options
 from benchkit.thresholds import calibration_scores, pot_threshold, quantile_threshold
 from benchkit.windows import Scaler
 
@@ -88,8 +88,8 @@ class Evaluation:
         return hashlib.sha256(canonical_json(payload).encode()).hexdigest()
 
     def options(self) -> Any:
-        opts = {k: tuple(v) if isinstance(v, list) else v for k, v in self.metric_options.items()}
-        return _metrics.MetricOptions(**opts)
+        """The ``MetricOptions`` these settings describe."""
+        return metric_options(self.metric_options)
 
 
 @dataclass

@@ -190,12 +190,6 @@ class ExperimentSpec:
                 out.append(p)
         return tuple(out)
 
-    def metric_options(self) -> Any:
-        """The ``[metrics]`` table as a :class:`benchkit.metrics.MetricOptions`."""
-        from benchkit.metrics import MetricOptions
-
-        return MetricOptions(**self.metrics)
-
     def to_dict(self) -> dict[str, Any]:
         """Plain data in the TOML layout; ``parse_spec(spec.to_dict())`` equals ``spec``."""
         out: dict[str, Any] = {"name": self.name}
@@ -354,15 +348,18 @@ def _metrics(t: dict) -> dict[str, Any]:
         default = getattr(defaults, key)
         out[key] = _like(value, default, where)
     try:
-        MetricOptions(**_as_options(out))
+        metric_options(out)
     except (TypeError, ValueError) as exc:
         text = str(exc)
         raise SpecError(text if text.startswith("metrics.") else f"metrics: {text}") from None
     return out
 
 
-def _as_options(values: dict[str, Any]) -> dict[str, Any]:
-    return {k: tuple(v) if isinstance(v, list) else v for k, v in values.items()}
+def metric_options(values: dict[str, Any]) -> Any:
+    """A :class:`benchkit.metrics.MetricOptions` from a validated ``[metrics]`` table."""
+    from benchkit.metrics import MetricOptions
+
+    return MetricOptions(**{k: tuple(v) if isinstance(v, list) else v for k, v in values.items()})
 
 
 def _like(value: Any, default: Any, where: str) -> Any:

@@ -7,7 +7,14 @@ import pytest
 from benchkit.cli import main
 from benchkit.errors import SpecError
 from benchkit.noise import CLEAN, make_perturbation
-from benchkit.spec import default_spec, default_spec_text, load_spec, parse_spec, parse_toml
+from benchkit.spec import (
+    default_spec,
+    default_spec_text,
+    load_spec,
+    metric_options,
+    parse_spec,
+    parse_toml,
+)
 
 MINIMAL = {
     "name": "t",
@@ -78,6 +85,13 @@ def test_variants_resolve_defaults_and_sweeps_expand():
     assert parse_spec(spec.to_dict()) == spec
 
 
+def test_metric_options_reach_metric_options():
+    spec = parse_spec(_with(metrics={"pa_k": [10, 30], "delay": 5, "range_bias": "front"}))
+    options = metric_options(spec.metrics)
+    assert (options.pa_k, options.delay, options.range_bias) == ((10, 30), 5, "front")
+    assert parse_spec(spec.to_dict()) == spec
+
+
 @pytest.mark.parametrize(
     ("changes", "message"),
     [
@@ -137,6 +151,9 @@ def test_variants_resolve_defaults_and_sweeps_expand():
             "thresholds.quantile_level: expected a number in (0, 1)",
         ),
         ({"metrics": {"no_such_option": 1}}, "metrics.no_such_option: unknown key"),
+        ({"metrics": {"pa_k": "20"}}, 'metrics.pa_k: expected a list, got "20"'),
+        ({"metrics": {"pa_k": [5, 200]}}, "metrics.pa_k: 200 is not an integer from 0 to 100"),
+        ({"metrics": {"delay": 2.5}}, "metrics.delay: expected an integer, got 2.5"),
         ({"datasets": []}, "datasets: expected at least one [[datasets]] table"),
         ({"datasets": [{"options": {}}]}, "datasets[0].source: missing (required)"),
         (
