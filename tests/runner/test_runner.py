@@ -203,3 +203,33 @@ def test_an_unrelated_out_folder_is_refused(tmp_path, capsys):
     assert main(["run", str(spec), "--out", str(tmp_path / "mine"), "--quiet"]) == 2
     assert "holds no benchkit results" in capsys.readouterr().err
     assert sorted(p.name for p in (tmp_path / "mine").iterdir()) == ["notes.txt"]
+
+
+def test_dataset_files_relative_to_the_spec_and_data_root(tmp_path, capsys, monkeypatch):
+    # invented data for a sanity check: one demo entity written as an .npz under a data root
+    entity = load("demo", **TINY_DEMO).entities[0]
+    root = tmp_path / "root"
+    root.mkdir()
+    np.savez(root / "node.npz", train=entity.train, test=entity.test, labels=entity.labels)
+    (tmp_path / "specs").mkdir()
+    (tmp_path / "specs" / "node.toml").write_text(
+        'format = "npz"\npath = "{data_root}/node.npz"\n', encoding="utf-8"
+    )
+    spec = tmp_path / "specs" / "run.toml"
+    spec.write_text(
+        'name = "t"\n[[datasets]]\nsource = "node.toml"\n[[detectors]]\nname = "random"\n',
+        encoding="utf-8",
+    )
+    monkeypatch.delenv("BENCHKIT_DATA_ROOT", raising=False)
+    out = tmp_path / "out"
+    assert main(["run", str(spec), "--out", str(out), "--quiet"]) == 2
+    err = capsys.readouterr().err
+    assert err.startswith("benchkit: error: datasets[0]: ") and "--data-root" in err
+    assert not out.exists()
+    assert main(["run", str(spec), "--out", str(out), "--quiet", "--data-root", str(root)]) == 0
+    with Store(out) as store:
+        run = store.latest_run()
+    assert run["fingerprints"] == {
+        "node/node": load(str(root / "node.npz")).entities[0].fingerprint()
+    }
+    capsys.readouterr()
