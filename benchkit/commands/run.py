@@ -115,10 +115,13 @@ def main(args: argparse.Namespace) -> int:
 
 
 def _write_outputs(out: Path) -> None:
-    """Integration point for the report (issue 8): tables, plots, HTML and scorecard for OUT.
+    """Write the report of OUT: tables, plots, ``report.html`` and ``scorecard.json``."""
+    from benchkit.report import write_all
 
-    Deliberately empty in the runner's own change; the integrator calls the report writer here.
-    """
+    written = write_all(out)
+    report = written.get("html")
+    if report is not None:
+        print(f"report: {report}")
 
 
 def summary_table(store: Store, run_id: int) -> str:

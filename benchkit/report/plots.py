@@ -87,8 +87,9 @@ def noise_figure(curves: pd.DataFrame, metric: str) -> Figure:
     """
     panels = sorted(curves.groupby(["kind", "apply_to"]).groups) if len(curves) else []
     n = max(len(panels), 1)
-    fig = Figure(figsize=(5.5 * n, 4.0))
-    fig.subplots_adjust(left=0.12 / n, right=1 - 0.03 / n, bottom=0.13, top=0.92, wspace=0.25)
+    width = 5.5 * n + 2.2  # room for the legend on the right, outside the curves
+    fig = Figure(figsize=(width, 4.0))
+    fig.subplots_adjust(left=0.7 / width, right=1 - 2.3 / width, bottom=0.13, top=0.92, wspace=0.25)
     axes = fig.subplots(1, n, squeeze=False)[0]
     variants = sorted(curves["variant"].unique()) if len(curves) else []
     for ax, (kind, apply_to) in zip(axes, panels, strict=False):
@@ -111,7 +112,7 @@ def noise_figure(curves: pd.DataFrame, metric: str) -> Figure:
         axes[0].set_xlabel("noise level")
         axes[0].set_ylabel(metric_axis_label(metric))
     if variants and panels:
-        axes[-1].legend(fontsize="small", loc="best")
+        axes[-1].legend(fontsize="small", loc="upper left", bbox_to_anchor=(1.02, 1.0))
     return fig
 
 
