@@ -287,6 +287,7 @@ class PeakMemory:
     def __enter__(self) -> PeakMemory:
         self.mb: float | None = None
         self._reset = False
+        _release_freed_heap()
         try:
             with open("/proc/self/clear_refs", "w", encoding="ascii") as fh:
                 fh.write("5")  # resets VmHWM to the current RSS (Linux >= 4.0)
@@ -300,6 +301,17 @@ class PeakMemory:
         peak = _status_kb("VmHWM") if self._reset else _maxrss_kb()
         if peak is not None and self._start_kb is not None:
             self.mb = max(peak - self._start_kb, 0) / 1024.0
+
+
+def _release_freed_heap() -> None:
+    """Return memory freed by earlier cells to the OS (glibc ``malloc_trim``), so that the next
+    cell's resident-memory growth is not hidden by a heap that already holds free pages."""
+    try:
+        import ctypes
+
+        ctypes.CDLL("libc.so.6").malloc_trim(0)
+    except (OSError, AttributeError):  # not glibc: the figure may then read low
+        pass
 
 
 def _maxrss_kb() -> int | None:
