@@ -45,7 +45,7 @@ from typing import Any
 
 import numpy as np
 
-from benchkit.detector import Param
+from benchkit.detector import Param, shown
 from benchkit.errors import ParamError, SpecError
 
 NOISE_KINDS: tuple[str, ...] = ("additive", "multiplicative", "impulse", "missing", "drift")
@@ -107,16 +107,16 @@ def _prefix(where: str) -> str:
 
 def _check_level(kind: str, level: Any, options: dict[str, Any], where: str) -> float:
     if isinstance(level, (bool, np.bool_)) or not isinstance(level, (int, float, np.number)):
-        raise SpecError(f"{where}: expected a number >= 0, got {level!r}")
+        raise SpecError(f"{where}: expected a number >= 0, got {shown(level)}")
     value = float(level)
     if not math.isfinite(value) or value < 0:
-        raise SpecError(f"{where}: expected a number >= 0, got {level!r}")
+        raise SpecError(f"{where}: expected a number >= 0, got {shown(level)}")
     high, inclusive = _RATE_LIMIT.get(kind, (math.inf, True))
     if kind == "impulse" and options.get("mode") == "spikes":
         high, inclusive = 1.0, True
     if value > high or (value == high and not inclusive):
         bound = f"<= {format_number(high)}" if inclusive else f"< {format_number(high)}"
-        raise SpecError(f"{where}: a rate for kind {kind!r} must be {bound}, got {level!r}")
+        raise SpecError(f"{where}: a rate for kind {kind!r} must be {bound}, got {shown(level)}")
     return value
 
 
@@ -159,10 +159,11 @@ def _canonical(
             raise SpecError(f"{prefix}kind: {CLEAN_KIND!r} takes level 0 and no options")
         return CLEAN_KIND, 0.0, "both", ()
     if kind not in NOISE_KINDS:
-        raise SpecError(f"{prefix}kind: expected one of {', '.join(NOISE_KINDS)}, got {kind!r}")
+        kinds = ", ".join(NOISE_KINDS)
+        raise SpecError(f"{prefix}kind: expected one of {kinds}, got {shown(kind)}")
     if apply_to not in APPLY_TO:
         raise SpecError(
-            f"{prefix}apply_to: expected one of {', '.join(APPLY_TO)}, got {apply_to!r}"
+            f"{prefix}apply_to: expected one of {', '.join(APPLY_TO)}, got {shown(apply_to)}"
         )
     checked = _check_options(kind, pairs, where)
     level_value = _check_level(kind, level, checked, prefix + level_key)
@@ -258,7 +259,7 @@ def perturbation_from_key(key: str) -> Perturbation:
 def _check_levels(levels: Any, where: str) -> list[int | float]:
     expected = "expected an increasing list of numbers >= 0"
     if not isinstance(levels, (list, tuple)) or not levels:
-        raise SpecError(f"{where}: {expected}, got {levels!r}")
+        raise SpecError(f"{where}: {expected}, got {shown(levels)}")
     for v in levels:
         if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v) or v < 0:
             raise SpecError(f"{where}: {expected}, got {list(levels)!r}")
@@ -282,19 +283,20 @@ def parse_sweeps(tables: list[dict], where: str = "sweep") -> list[Perturbation]
     :data:`CLEAN`.
     """
     if not isinstance(tables, list):
-        raise SpecError(f"{where}: expected an array of tables ([[{where}]]), got {tables!r}")
+        raise SpecError(f"{where}: expected an array of tables ([[{where}]]), got {shown(tables)}")
     out: list[Perturbation] = []
     seen: set[Perturbation] = set()
     for i, table in enumerate(tables):
         path = f"{where}[{i}]"
         if not isinstance(table, dict):
-            raise SpecError(f"{path}: expected a table, got {table!r}")
+            raise SpecError(f"{path}: expected a table, got {shown(table)}")
         for required in ("kind", "levels"):
             if required not in table:
                 raise SpecError(f"{path}.{required}: missing (required)")
         kind = table["kind"]
         if kind not in NOISE_KINDS:
-            raise SpecError(f"{path}.kind: expected one of {', '.join(NOISE_KINDS)}, got {kind!r}")
+            kinds = ", ".join(NOISE_KINDS)
+            raise SpecError(f"{path}.kind: expected one of {kinds}, got {shown(kind)}")
         levels = _check_levels(table["levels"], f"{path}.levels")
         options = {k: v for k, v in table.items() if k not in ("kind", "levels", "apply_to")}
         apply_to = table.get("apply_to", "both")

@@ -279,9 +279,9 @@ def test_keys_are_canonical_and_round_trip():
          "sweep[0].levels: expected an increasing list of numbers >= 0, got []"),
         ([{"kind": "gaussian", "levels": [0.1]}],
          "sweep[0].kind: expected one of additive, multiplicative, impulse, missing, drift, "
-         "got 'gaussian'"),
+         'got "gaussian"'),
         ([{"kind": "additive", "levels": [0.1], "apply_to": "all"}],
-         "sweep[0].apply_to: expected one of train, test, both, got 'all'"),
+         'sweep[0].apply_to: expected one of train, test, both, got "all"'),
         ([{"levels": [0.1]}], "sweep[0].kind: missing (required)"),
         ([{"kind": "missing", "levels": [0.5, 1]}],
          "sweep[0].levels: a rate for kind 'missing' must be < 1, got 1"),
@@ -293,7 +293,7 @@ def test_keys_are_canonical_and_round_trip():
          "sweep[0].df: unknown option of noise kind 'additive'; valid: (none)"),
         ([{"kind": "impulse", "levels": [0.1], "magnitude": 3}],
          "sweep[0].magnitude: only used with mode = 'spikes', not 'student-t'"),
-        ("additive", "sweep: expected an array of tables ([[sweep]]), got 'additive'"),
+        ("additive", 'sweep: expected an array of tables ([[sweep]]), got "additive"'),
     ],
 )  # fmt: skip
 def test_bad_sweep_tables_name_the_key_path(tables, message):
