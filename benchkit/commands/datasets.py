@@ -5,9 +5,9 @@ from __future__ import annotations
 
 import argparse
 import sys
-import tomllib
 import warnings
 
+from benchkit.commands._args import parse_key_value
 from benchkit.data import DataWarning, export_split_folder, load
 from benchkit.data.loaders import DEMO
 from benchkit.data.summary import summary_table
@@ -63,18 +63,7 @@ def parse_options(pairs: list[str]) -> dict:
     Values are read as TOML values (numbers, booleans, arrays, inline tables); anything
     that is not valid TOML is taken as a plain string.
     """
-    options = {}
-    for pair in pairs:
-        key, sep, text = pair.partition("=")
-        key = key.strip()
-        if not sep or not key:
-            raise DataError(f"--option {pair!r}: expected KEY=VALUE")
-        try:
-            value = tomllib.loads(f"v = {text}")["v"]
-        except tomllib.TOMLDecodeError:
-            value = text
-        options[key] = value
-    return options
+    return dict(parse_key_value(pair, "--option", DataError) for pair in pairs)
 
 
 def run_show(args: argparse.Namespace) -> int:

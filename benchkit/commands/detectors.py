@@ -9,13 +9,13 @@ from __future__ import annotations
 
 import argparse
 import sys
-import tomllib
 import warnings
 from typing import Any
 
 from tabulate import tabulate
 
 from benchkit import registry
+from benchkit.commands._args import parse_key_value
 from benchkit.detector import Detector
 from benchkit.errors import ParamError
 from benchkit.testing import run_checks
@@ -109,15 +109,7 @@ def run_show(args: argparse.Namespace) -> int:
 
 def parse_param(text: str) -> tuple[str, Any]:
     """``KEY=VALUE`` -> (key, value); the value is read as a TOML scalar, else kept as text."""
-    key, eq, raw = text.partition("=")
-    key = key.strip()
-    if not eq or not key:
-        raise ParamError(f"--param {text!r}: expected KEY=VALUE")
-    try:
-        value = tomllib.loads(f"v = {raw.strip()}")["v"]
-    except tomllib.TOMLDecodeError:
-        value = raw.strip()
-    return key, value
+    return parse_key_value(text, "--param", ParamError)
 
 
 def run_check(args: argparse.Namespace) -> int:
