@@ -229,7 +229,13 @@ def load_spec(path: str | Path) -> ExperimentSpec:
         raise SpecError(f"{p}: no such spec file") from None
     except (OSError, UnicodeDecodeError) as exc:
         raise SpecError(f"{p}: cannot read spec: {exc}") from None
-    return parse_toml(text, str(p), base_dir=p.resolve().parent)
+    try:
+        return parse_toml(text, str(p), base_dir=p.resolve().parent)
+    except SpecError as exc:
+        message = str(exc)
+        if message.startswith(str(p)):
+            raise
+        raise SpecError(f"{p}: {message}") from None
 
 
 def parse_toml(text: str, source: str, base_dir: Path | None = None) -> ExperimentSpec:

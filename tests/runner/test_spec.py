@@ -208,8 +208,9 @@ def test_cli_bad_spec_is_one_line_exit_2_and_writes_nothing(tmp_path, capsys):
     )
     status, out, err = _cli(capsys, "run", str(spec), "--out", str(tmp_path / "out"))
     assert status == 2 and out == ""
+    # the file first, then the key path inside it
     assert err.splitlines() == [
-        'benchkit: error: detectors[0].params.window: expected an integer >= 2, got "ten"'
+        f'benchkit: error: {spec}: detectors[0].params.window: expected an integer >= 2, got "ten"'
     ]
     assert not (tmp_path / "out").exists()
     status, _, err = _cli(capsys, "run", "--workers", "0")
