@@ -24,6 +24,7 @@ from benchkit.report.tables import (
     robustness_table,
     timing_table,
 )
+from benchkit.report.uncertainty import load_clean_scores, uncertainty_table
 from benchkit.store import Store
 from benchkit.sweep import sweep_curves
 
@@ -56,16 +57,23 @@ def chosen_threshold(metrics: pd.DataFrame, threshold: str | None) -> str:
 
 
 def build_tables(
-    metrics: pd.DataFrame, cells: pd.DataFrame, metric: str = "f1", threshold: str | None = None
+    metrics: pd.DataFrame,
+    cells: pd.DataFrame,
+    metric: str = "f1",
+    threshold: str | None = None,
+    store: Store | None = None,
 ) -> list[Table]:
-    """Comparison tables (every strategy in the run, or only ``threshold``), then the timing,
-    robustness and rank tables for ``metric`` under ``threshold`` (default: the first
-    strategy present, in the order oracle, pot, quantile)."""
+    """Comparison tables (every strategy in the run, or only ``threshold``), with ``store``
+    the bootstrap-interval tables of the same strategies (they need the cached scores), then
+    the timing, robustness and rank tables for ``metric`` under ``threshold`` (default: the
+    first strategy present, in the order oracle, pot, quantile). The rank table is last."""
     check_choices(metrics, metric, threshold)
     chosen = chosen_threshold(metrics, threshold)
     shown = [threshold] if threshold else _strategies(metrics)
+    cached = load_clean_scores(store, cells) if store is not None else None
     return [
         *(comparison_table(metrics, s) for s in shown),
+        *(uncertainty_table(cached, s) for s in shown if cached is not None),
         timing_table(cells),
         robustness_table(metrics, metric, chosen),
         rank_table(metrics, metric, chosen),
@@ -146,7 +154,7 @@ def write_all(
         metrics, cells, run = store.metrics_frame(), store.cells_frame(), store.latest_run()
         if metrics.empty:
             raise DataError(f"{out}: the latest run has no successful cell to report on")
-        tables = build_tables(metrics, cells, metric, threshold)
+        tables = build_tables(metrics, cells, metric, threshold, store)
         for table in tables:
             path = out / "tables" / f"{table.name}.{EXTENSIONS[fmt]}"
             written[f"table:{table.name}"] = write_text_atomic(path, render_table(table, fmt))
