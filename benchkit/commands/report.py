@@ -15,7 +15,7 @@ def add_parser(subparsers) -> None:
         "report",
         help="print the tables of a results folder and write its report files",
         description=(
-            "Print the comparison, timing, robustness and rank tables of a results folder and "
+            "Print the comparison, uncertainty, timing, robustness and rank tables of a results folder and "
             "write OUT/tables/*, OUT/plots/*.png, OUT/report.html and OUT/scorecard.json."
         ),
     )
