@@ -27,7 +27,9 @@ COMMAND_MODULES = (
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="benchkit",
-        description="Compare anomaly detectors on labelled multivariate KPI data under one protocol.",
+        description=(
+            "Compare anomaly detectors on labelled multivariate KPI data under one protocol."
+        ),
     )
     parser.add_argument("--version", action="version", version=f"benchkit {__version__}")
     subparsers = parser.add_subparsers(dest="command", metavar="COMMAND")

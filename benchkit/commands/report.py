@@ -15,8 +15,9 @@ def add_parser(subparsers) -> None:
         "report",
         help="print the tables of a results folder and write its report files",
         description=(
-            "Print the comparison, uncertainty, timing, robustness and rank tables of a results folder and "
-            "write OUT/tables/*, OUT/plots/*.png, OUT/report.html and OUT/scorecard.json."
+            "Print the comparison, uncertainty, timing, robustness and rank tables of a results "
+            "folder and write OUT/tables/*, OUT/plots/*.png, OUT/report.html and "
+            "OUT/scorecard.json."
         ),
     )
     parser.add_argument("out", type=Path, metavar="OUT", help="a folder written by benchkit run")
