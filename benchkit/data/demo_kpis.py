@@ -18,7 +18,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.signal import lfilter
 
 STEP_MINUTES = 5
 STEPS_PER_DAY = 24 * 60 // STEP_MINUTES
@@ -44,6 +43,8 @@ class Drivers:
 def _ar1(rng: np.random.Generator, n: int, phi: float, sd: float) -> np.ndarray:
     """Stationary AR(1) with coefficient ``phi`` and marginal standard deviation ``sd``."""
     shocks = rng.standard_normal(n + _BURN_IN) * sd * np.sqrt(1.0 - phi * phi)
+    from scipy.signal import lfilter  # imported here: scipy.signal takes ~1 s to import
+
     return lfilter([1.0], [1.0, -phi], shocks)[_BURN_IN:]
 
 
