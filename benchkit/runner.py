@@ -49,7 +49,7 @@ from benchkit.protocol import (
     run_cell,
 )
 from benchkit.spec import DetectorSpec, ExperimentSpec
-from benchkit.store import CellRecord, Store
+from benchkit.store import CellRecord, Store, writer_lock
 
 
 def hard_kill_grace(limit: float) -> float:
@@ -666,6 +666,7 @@ def run_experiment(
         session = (
             stack.enter_context(DaskSession(workers, scheduler)) if executor == "dask" else None
         )
+        stack.enter_context(writer_lock(out))
         store = stack.enter_context(Store(out, create=True))
         store.remove_partial_files()
         grid = [(c.key, c.variant) for c in plan]

@@ -16,6 +16,8 @@ a complete cell or none. A cell counts as done when its row says ``ok`` and its 
 
 from __future__ import annotations
 
+import contextlib
+import fcntl
 import json
 import os
 import sqlite3
@@ -438,3 +440,30 @@ def _real(v: Any) -> float | None:
     """SQLite stores NaN as NULL; keep that explicit."""
     f = float(v)
     return None if np.isnan(f) else f
+
+
+LOCK_NAME = ".writer.lock"
+
+
+@contextlib.contextmanager
+def writer_lock(out: Path | str):
+    """Hold the results folder's writer lock for the block; one writing command at a time.
+
+    A second ``benchkit run`` or ``rescore`` on the same OUT stops at once with one line
+    instead of interleaving cells. The lock is an ``flock`` on ``OUT/.writer.lock``, so the
+    kernel releases it when the holder dies, even by SIGKILL: a killed run can be resumed.
+    """
+    out = Path(out)
+    out.mkdir(parents=True, exist_ok=True)
+    handle = open(out / LOCK_NAME, "a+b")  # noqa: SIM115 - closed in the finally below
+    try:
+        try:
+            fcntl.flock(handle.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except BlockingIOError:
+            raise BenchkitInputError(
+                f"{out}: another benchkit command is writing this results folder; "
+                "wait for it to finish or choose another --out"
+            ) from None
+        yield
+    finally:
+        handle.close()

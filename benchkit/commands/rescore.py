@@ -12,7 +12,7 @@ from benchkit.commands.run import _workers
 from benchkit.protocol import CellTask, Evaluation
 from benchkit.runner import available_cores, run_local
 from benchkit.spec import parse_evaluation
-from benchkit.store import Store
+from benchkit.store import Store, writer_lock
 
 
 def add_parser(subparsers: argparse._SubParsersAction) -> None:
@@ -29,7 +29,7 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
 
 def rescore(out: str, workers: int | None = None) -> tuple[int, int]:
     """Re-evaluate every ``ok`` cell of ``out``; return ``(n_rescored, n_failed)``."""
-    with Store(out) as store:
+    with Store(out) as store, writer_lock(out):
         thresholds, metric_options = parse_evaluation(store.latest_run()["spec"])
         evaluation = Evaluation(thresholds, metric_options)
         keys = sorted(store.completed())

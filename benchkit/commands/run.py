@@ -15,7 +15,7 @@ from benchkit.detector import shown
 from benchkit.errors import SpecError
 from benchkit.runner import RunSummary, run_experiment
 from benchkit.spec import ExperimentSpec, default_spec, default_spec_text, load_spec
-from benchkit.store import DB_NAME, Store
+from benchkit.store import DB_NAME, LOCK_NAME, Store
 
 RUNS_DIR = Path("results") / "runs"
 EXIT_SOME_FAILED = 3
@@ -83,7 +83,8 @@ def _out_folder(out: str | None, spec: ExperimentSpec) -> Path:
     path = Path(out)
     if path.exists() and not path.is_dir():
         raise SpecError(f"--out {out}: exists and is not a folder")
-    if path.is_dir() and any(path.iterdir()) and not (path / DB_NAME).is_file():
+    foreign = [p for p in path.iterdir() if p.name != LOCK_NAME] if path.is_dir() else []
+    if foreign and not (path / DB_NAME).is_file():
         raise SpecError(f"--out {out}: a non-empty folder that holds no benchkit results")
     return path
 
