@@ -30,9 +30,14 @@ A channel that is constant in train has ``s_c = 0`` and gets no additive or impu
 Level 0 of any kind is :data:`CLEAN`, the unperturbed run.
 
 Randomness: the stream is ``numpy.random.default_rng`` of a seed sequence built from the cell
-seed, the fixed tag :data:`NOISE_TAG` and a sha256 of the entity name and the perturbation key,
-with one sub-stream for train and one for test. It therefore never coincides with a detector's
-``default_rng(seed)`` stream, and it is the same on every run and machine.
+seed, the fixed tag :data:`NOISE_TAG` and a sha256 of the entity name, the noise kind and its
+options, with one sub-stream for train and one for test. It therefore never coincides with a
+detector's ``default_rng(seed)`` stream, and it is the same on every run and machine.
+The level and ``apply_to`` are left out of the stream on purpose (common random numbers): the
+levels of one sweep scale the *same* draws (additive, multiplicative, drift, Student-t), and the
+dropout and spike masks of a higher rate contain those of a lower one, so a sweep curve shows the
+effect of the level, not a fresh noise sample at each level; and "train" and "both" perturb the
+train part identically.
 """
 
 from __future__ import annotations
@@ -318,6 +323,11 @@ class _TrainStats:
     mean: np.ndarray
 
 
+def _stream_key(p: Perturbation) -> str:
+    """The part of a perturbation that selects its draws: kind and options, not level/apply_to."""
+    return p.kind + ":" + ",".join(f"{name}={value!r}" for name, value in p.options)
+
+
 def _streams(seed: int, entity: str, key: str) -> tuple[np.random.Generator, np.random.Generator]:
     """Independent (train, test) generators for one cell's noise."""
     if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
@@ -428,7 +438,7 @@ def apply_perturbation(
     if perturbation.is_clean:
         return train_out, test_out
     ref = _TrainStats(std=train_out.std(axis=0), mean=train_out.mean(axis=0))
-    train_rng, test_rng = _streams(seed, entity, perturbation.key())
+    train_rng, test_rng = _streams(seed, entity, _stream_key(perturbation))
     apply = _APPLY[perturbation.kind]
     if perturbation.apply_to in ("train", "both"):
         train_out = apply(train_out, train_rng, perturbation, ref)

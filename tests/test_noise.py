@@ -313,3 +313,27 @@ def test_combined_sweeps_deduplicate_and_share_one_clean_run():
         "none", "multiplicative:0.05:both", "multiplicative:0.1:both", "additive:0.1:both",
         "multiplicative:0.2:both",
     ]  # fmt: skip
+
+
+def test_levels_of_one_sweep_scale_the_same_draws():
+    # common random numbers (standard variance-reduction practice in simulation sweeps, no
+    # single outside source): additive noise at level 0.4 is exactly twice that at 0.2, and the
+    # train part is perturbed identically whether apply_to is "train" or "both"
+    x = TRAIN[:500]
+    low = apply_perturbation(x, x, make_perturbation("additive", 0.2), seed=3, entity="n")
+    high = apply_perturbation(x, x, make_perturbation("additive", 0.4), seed=3, entity="n")
+    np.testing.assert_allclose(high[0] - x, 2.0 * (low[0] - x), rtol=1e-12, atol=1e-12)
+    train_only = apply_perturbation(
+        x, x, make_perturbation("additive", 0.2, apply_to="train"), seed=3, entity="n"
+    )
+    assert np.array_equal(train_only[0], low[0]) and np.array_equal(train_only[1], x)
+    # dropout masks nest: every point missing at rate 0.05 is also missing at rate 0.2
+    few = missing_points(x, make_perturbation("missing", 0.05, fill="zero"))
+    many = missing_points(x, make_perturbation("missing", 0.2, fill="zero"))
+    assert few.any() and not (few & ~many).any()
+
+
+def missing_points(x, p):
+    shifted = x + 1000.0  # no true zeros, so a zero marks a filled gap
+    noisy, _ = apply_perturbation(shifted, shifted, p, seed=3, entity="n")
+    return noisy == 0.0
