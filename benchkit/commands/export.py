@@ -28,6 +28,7 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
     p.add_argument("out", metavar="OUT", help="results folder written by benchkit run")
     p.add_argument("--format", required=True, choices=FORMATS, help="file format")
     p.add_argument("--to", metavar="PATH", help="destination folder (default: OUT/export)")
+    p.add_argument("--quiet", action="store_true", help="do not print the paths written")
     p.set_defaults(func=main)
 
 
@@ -63,5 +64,6 @@ def export(out: str | Path, fmt: str, to: str | Path | None = None) -> list[Path
 
 def main(args: argparse.Namespace) -> int:
     for path in export(args.out, args.format, args.to):
-        print(path)
+        if not args.quiet:
+            print(path)
     return 0

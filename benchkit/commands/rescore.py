@@ -7,6 +7,7 @@ in OUT; the metric code is the installed one (so new metrics reach old results t
 from __future__ import annotations
 
 import argparse
+import sys
 
 from benchkit.commands.run import _workers
 from benchkit.protocol import CellTask, Evaluation
@@ -24,6 +25,7 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
     )
     p.add_argument("out", metavar="OUT", help="results folder written by benchkit run")
     p.add_argument("--workers", metavar="N", help="worker processes (default: available cores)")
+    p.add_argument("--quiet", action="store_true", help="print nothing but errors")
     p.set_defaults(func=main)
 
 
@@ -57,11 +59,12 @@ def rescore(out: str, workers: int | None = None) -> tuple[int, int]:
                 done += 1
             else:
                 failed += 1
-                print(f"rescore failed for cell {result.key}: {result.error}")
+                print(f"rescore failed for cell {result.key}: {result.error}", file=sys.stderr)
     return done, failed
 
 
 def main(args: argparse.Namespace) -> int:
     done, failed = rescore(args.out, _workers(args.workers))
-    print(f"{done} cells re-evaluated from cached scores, {failed} failed: {args.out}")
+    if not args.quiet:
+        print(f"{done} cells re-evaluated from cached scores, {failed} failed: {args.out}")
     return 0 if failed == 0 else 3
