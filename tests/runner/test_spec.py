@@ -221,3 +221,25 @@ def test_cli_prints_the_default_spec(capsys):
     status, out, _ = _cli(capsys, "run", "--print-default")
     assert status == 0 and out == default_spec_text()
     assert parse_toml(out, "printed") == default_spec()
+
+
+def test_the_commented_settings_in_the_default_spec_are_valid_and_are_the_defaults():
+    # common practice: documentation that is executable cannot drift from the code it documents
+    import re
+
+    text = default_spec_text()
+    lines = []
+    for line in text.splitlines():
+        m = re.match(r"^# (\[[\w.]+\]|\w+ = \S.*?)(\s+#.*)?$", line)
+        lines.append(m.group(1) if m else line)
+    uncommented = parse_toml("\n".join(lines), "uncommented default")
+    assert uncommented.metrics and uncommented.datasets[0].options
+    from benchkit.data.demo import make_demo
+    from benchkit.metrics import MetricOptions
+
+    # the values shown are the real defaults, so uncommenting them changes nothing
+    assert MetricOptions(**uncommented.metrics) == MetricOptions()
+    sizes = uncommented.datasets[0].options
+    demo = make_demo()
+    assert (len(demo.entities), *demo.entities[0].train.shape[::-1], len(demo.entities[0].test)) \
+        == (sizes["n_entities"], sizes["n_channels"], sizes["n_train"], sizes["n_test"])
