@@ -21,6 +21,7 @@ which can under-report a cell that needs less than an earlier one.
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import json
 import time
@@ -303,15 +304,23 @@ class PeakMemory:
             self.mb = max(peak - self._start_kb, 0) / 1024.0
 
 
-def _release_freed_heap() -> None:
-    """Return memory freed by earlier cells to the OS (glibc ``malloc_trim``), so that the next
-    cell's resident-memory growth is not hidden by a heap that already holds free pages."""
+@functools.cache
+def _malloc_trim() -> Any:
+    """glibc's ``malloc_trim``, loaded once per process; ``None`` where there is no glibc."""
     try:
         import ctypes
 
-        ctypes.CDLL("libc.so.6").malloc_trim(0)
-    except (OSError, AttributeError):  # not glibc: the figure may then read low
-        pass
+        return ctypes.CDLL("libc.so.6").malloc_trim
+    except (OSError, AttributeError):  # not glibc: the memory figure may then read low
+        return None
+
+
+def _release_freed_heap() -> None:
+    """Return memory freed by earlier cells to the OS (glibc ``malloc_trim``), so that the next
+    cell's resident-memory growth is not hidden by a heap that already holds free pages."""
+    trim = _malloc_trim()
+    if trim is not None:
+        trim(0)
 
 
 def _maxrss_kb() -> int | None:

@@ -1,6 +1,5 @@
 """One writing command per results folder (the flock-based writer lock)."""
 
-import os
 import subprocess
 import sys
 import textwrap
@@ -39,7 +38,7 @@ def test_run_exits_2_with_one_line_while_another_process_holds_the_folder(tmp_pa
                 print("held", flush=True)
                 time.sleep(60)
         """)],
-        stdout=subprocess.PIPE, text=True, env={**os.environ},
+        stdout=subprocess.PIPE, text=True,
     )  # fmt: skip
     try:
         assert holder.stdout.readline().strip() == "held"
