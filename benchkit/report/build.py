@@ -100,16 +100,20 @@ def _step_label(spec: dict) -> str:
 
 
 def build_plots(
-    store: Store, metrics: pd.DataFrame, rank: Table, metric: str, threshold: str, folder: Path
+    store: Store, metrics: pd.DataFrame, cells: pd.DataFrame, spec: dict, rank: Table,
+    metric: str, threshold: str, folder: Path,
 ) -> list[tuple[str, str, Path]]:
-    """Write the four PNGs to ``folder``; return ``(name, caption, path)`` triples."""
+    """Write the four PNGs to ``folder``; return ``(name, caption, path)`` triples.
+
+    ``cells`` and ``spec`` are the store's cells frame and the latest run's spec, already read
+    by the caller; ``store`` is used only for the cached scores of the traced entity."""
     out = []
     curves = sweep_curves(metrics, metric, threshold)
     out.append(("noise-curves", f"{metric} versus noise level per detector",
                 plots.plot_noise_curves(curves, metric, folder / "noise-curves.png")))
-    entity, picked = _trace_cells(store.cells_frame())
+    entity, picked = _trace_cells(cells)
     cached = [(row.variant, store.load_scores(row.cell_key)) for row in picked.itertuples()]
-    step = _step_label(store.latest_run()["spec"])
+    step = _step_label(spec)
     out.append(("score-trace", f"Test scores on {entity}, labelled events shaded, thresholds drawn",
                 plots.plot_score_traces(cached, folder / "score-trace.png", entity, step)))
     cd = rank.data.attrs.get("cd", np.nan)
@@ -159,7 +163,8 @@ def write_all(
             path = out / "tables" / f"{table.name}.{EXTENSIONS[fmt]}"
             written[f"table:{table.name}"] = write_text_atomic(path, render_table(table, fmt))
         chosen = metric_threshold(metric, chosen_threshold(metrics, threshold))
-        figures = build_plots(store, metrics, tables[-1], metric, chosen, out / "plots")
+        figures = build_plots(store, metrics, cells, run["spec"], tables[-1], metric, chosen,
+                              out / "plots")
         written.update({f"plot:{name}": path for name, _, path in figures})
         failed = cells[cells["status"] != "ok"]
         remarks = [
