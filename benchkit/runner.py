@@ -1,61 +1,51 @@
 """Run an experiment: expand the grid, skip cached cells, execute the rest, write the store.
 
-Cells run in worker processes: a local pool (default; one worker per available core) or Dask
-distributed. Only this driver writes the store. A cell that raises, returns bad scores or runs
-past its time limit is recorded as ``failed`` or ``timeout`` with its message; the other cells go
-on. Running the same spec into the same OUT again computes only what is missing (``ok`` cells
-are reused; failed and timed-out cells are tried again), and cells whose metric or threshold
-settings changed get their metrics recomputed from the cached scores.
-
-Time limits: a watcher thread in the worker raises :class:`CellTimeout` in the thread running
-the cell at the limit, and again every half second until the cell stops (this interrupts Python
-code between bytecodes, not a single long C call). The local pool also kills a worker that is
-still busy a grace period after the limit and starts a fresh one; Dask has no such hard stop, so
-there a cell stuck in one C call is marked ``timeout`` only when that call returns.
-
-Threads: every cell runs with one BLAS/OpenMP thread and one torch thread, in every executor, so
-that a cell's result does not depend on where or beside what it ran.
+Cells run in worker processes: a local pool (default; one worker per available core,
+:mod:`benchkit.local_pool`) or Dask distributed (:mod:`benchkit.dask_executor`); inside a worker,
+:mod:`benchkit.worker` runs each cell with its time and thread limits. Only this driver writes the
+store. A cell that raises, returns bad scores or runs past its time limit is recorded as
+``failed`` or ``timeout`` with its message; the other cells go on. Running the same spec into the
+same OUT again computes only what is missing (``ok`` cells are reused; failed and timed-out cells
+are tried again), and cells whose metric or threshold settings changed get their metrics
+recomputed from the cached scores.
 """
 
 from __future__ import annotations
 
 import contextlib
-import ctypes
-import math
-import multiprocessing
 import os
 import sys
-import threading
 import time
-import traceback
-from collections import deque
-from collections.abc import Callable, Iterable, Iterator
 from dataclasses import dataclass, field
-from multiprocessing.connection import wait
 from pathlib import Path
 from typing import Any
 
-from benchkit import registry
+from benchkit.dask_executor import DaskSession
 from benchkit.data.model import Dataset, Entity
-from benchkit.errors import BenchkitInputError, DataError, SpecError
+from benchkit.errors import DataError, SpecError
+from benchkit.local_pool import hard_kill_grace, run_local
 from benchkit.protocol import (
     PROTOCOL_VERSION,
     CellResult,
     CellTask,
     Evaluation,
-    PeakMemory,
     canonical_json,
     cell_key,
-    run_cell,
 )
 from benchkit.spec import DetectorSpec, ExperimentSpec
 from benchkit.store import CellRecord, Store, writer_lock
 
-
-def hard_kill_grace(limit: float) -> float:
-    """Seconds past a cell's time limit after which the local pool kills its worker process:
-    the limit itself, between 1 and 5 seconds."""
-    return max(1.0, min(5.0, limit))
+__all__ = [
+    "PlannedCell",
+    "RunSummary",
+    "available_cores",
+    "environment",
+    "expand_grid",
+    "hard_kill_grace",
+    "load_datasets",
+    "run_experiment",
+    "run_local",
+]
 
 
 # ------------------------------------------------------------------------------- the grid
@@ -171,349 +161,6 @@ def expand_grid(spec: ExperimentSpec, datasets: list[Dataset]) -> list[PlannedCe
                             ),
                         )
     return list(cells.values())
-
-
-# ------------------------------------------------------------------------------- in the worker
-
-
-RESEND_SECONDS = 0.5
-
-
-class CellTimeout(BaseException):
-    """Raised inside a cell's thread when it runs past its time limit.
-
-    A BaseException, so that a detector's own ``except Exception`` cannot swallow it.
-    """
-
-
-def _raise_in_thread(thread_id: int, exc: type[BaseException] | None) -> None:
-    ctypes.pythonapi.PyThreadState_SetAsyncExc(
-        ctypes.c_ulong(thread_id), ctypes.py_object(exc) if exc is not None else None
-    )
-
-
-def _call_with_limit(fn: Callable[[], CellResult], limit: float) -> CellResult:
-    """Run ``fn`` in this thread; raise CellTimeout in it once ``limit`` seconds have passed.
-
-    The exception is sent again every :data:`RESEND_SECONDS` until ``fn`` ends, because an
-    exception that lands in a callback (a garbage-collector hook, a ``__del__``) is swallowed
-    there. A cell that ran past its limit is a timeout even if it then returned normally.
-    """
-    if not math.isfinite(limit):
-        return fn()
-    thread_id = threading.get_ident()
-    lock = threading.Lock()
-    finished = threading.Event()
-    fired = False
-
-    def watch() -> None:
-        nonlocal fired
-        wait = limit
-        while not finished.wait(wait):
-            with lock:
-                if finished.is_set():
-                    return
-                fired = True
-                _raise_in_thread(thread_id, CellTimeout)
-            wait = RESEND_SECONDS
-
-    watcher = threading.Thread(target=watch, daemon=True)
-    watcher.start()
-    try:
-        result = fn()
-    finally:
-        with lock:
-            finished.set()
-            if fired:
-                _raise_in_thread(thread_id, None)  # drop an exception not delivered yet
-    if fired:
-        raise CellTimeout
-    return result
-
-
-def _ignore_swallowed_timeouts(unraisable: Any, _default: Any = sys.unraisablehook) -> None:
-    """``sys.unraisablehook``: stay silent about a CellTimeout that a callback swallowed."""
-    if not isinstance(unraisable.exc_value, CellTimeout):
-        _default(unraisable)
-
-
-def _limit_threads() -> None:
-    from threadpoolctl import threadpool_limits
-
-    threadpool_limits(1)
-    if "torch" in sys.modules:
-        torch = sys.modules["torch"]
-        if torch.get_num_threads() != 1:
-            torch.set_num_threads(1)
-
-
-def execute_task(task: CellTask, entity: Entity | None = None) -> CellResult:
-    """Run one task in this thread and never raise: failures become a failed or timeout result."""
-    for var in ("OMP_NUM_THREADS", "MKL_NUM_THREADS", "OPENBLAS_NUM_THREADS"):
-        os.environ[var] = "1"  # read by libraries imported later (torch reads it at import)
-    if entity is not None:
-        task.entity = entity
-    sys.unraisablehook = _ignore_swallowed_timeouts
-    if task.cached_scores is None:
-        try:  # import the detector (and the registry's built-ins) outside the time limit
-            registry.get(task.detector)
-        except Exception as exc:
-            return CellResult(task.key, "failed", error=_describe(exc))
-    _limit_threads()  # after the imports: torch may have just been loaded
-    memory = PeakMemory()
-    try:
-        with memory:
-            result = _call_with_limit(lambda: run_cell(task), task.time_limit)
-    except CellTimeout:
-        return CellResult(
-            task.key, "timeout", error=f"cell ran past its time limit of {task.time_limit:g} s"
-        )
-    except Exception as exc:  # failure isolation: any plug-in error fails only this cell
-        return CellResult(task.key, "failed", error=_describe(exc))
-    if not result.evaluated_only:
-        result.measures["peak_memory_mb"] = memory.mb
-    return result
-
-
-def _describe(exc: BaseException) -> str:
-    """``Type: message`` plus the innermost frame, on one line."""
-    frames = traceback.extract_tb(exc.__traceback__)
-    where = f" (at {Path(frames[-1].filename).name}:{frames[-1].lineno})" if frames else ""
-    text = str(exc).strip().replace("\n", " ")
-    return f"{type(exc).__name__}: {text}{where}"
-
-
-# ------------------------------------------------------------------------------- local pool
-
-
-def _worker_main(conn: Any) -> None:
-    """Loop of a local worker process: receive a task, send its result, until told to stop."""
-    parent = os.getppid()
-
-    def watch_parent() -> None:
-        # a SIGKILLed driver must not leave workers behind: the kernel re-parents them at once
-        # (even while the dead driver is not reaped yet), so a changed parent means it is gone
-        while os.getppid() == parent:
-            time.sleep(0.25)
-        os._exit(1)
-
-    threading.Thread(target=watch_parent, daemon=True).start()
-    while True:
-        try:
-            message = conn.recv()
-        except (EOFError, OSError):
-            return
-        if message is None:
-            return
-        conn.send(execute_task(message))
-
-
-class _Worker:
-    def __init__(self, ctx: Any) -> None:
-        self.conn, child = ctx.Pipe()
-        self.process = ctx.Process(target=_worker_main, args=(child,), daemon=True)
-        self.process.start()
-        child.close()
-        self.task: CellTask | None = None
-        self.deadline = 0.0
-
-    def kill(self) -> None:
-        """Stop the process at once (it may be stuck in native code)."""
-        self.process.kill()
-        self.process.join(5)
-        self.conn.close()
-
-
-def _context() -> Any:
-    """Fork on Linux (workers inherit the imported harness and detectors at no cost); elsewhere
-    a fork server that has imported them once."""
-    if sys.platform.startswith("linux"):
-        return multiprocessing.get_context("fork")
-    try:  # pragma: no cover - not on Linux
-        ctx = multiprocessing.get_context("forkserver")
-        ctx.set_forkserver_preload(["benchkit.runner", *registry.BUILTIN_MODULES])
-        return ctx
-    except ValueError:  # pragma: no cover - platforms without forkserver
-        return multiprocessing.get_context("spawn")
-
-
-def run_local(tasks: Iterable[CellTask], workers: int) -> Iterator[CellResult]:
-    """Run tasks on ``workers`` local processes; yield results as they finish.
-
-    The workers start at once, before the caller starts a progress bar (or any other thread).
-    A worker that dies (a crash in native code, the OOM killer) fails its cell; one still
-    busy a grace period (:func:`hard_kill_grace`) past the cell's time limit is killed
-    (status ``timeout``). Either way a fresh worker takes its place.
-    """
-    queue = deque(tasks)
-    if not queue:
-        return iter(())
-    ctx = _context()
-    pool = [_Worker(ctx) for _ in range(max(1, min(workers, len(queue))))]
-    return _drive(ctx, pool, queue)
-
-
-def _drive(ctx: Any, pool: list[_Worker], queue: deque) -> Iterator[CellResult]:
-    try:
-        while True:
-            for i, w in enumerate(pool):
-                if w.task is None and queue:
-                    pool[i] = _dispatch(ctx, w, queue.popleft())
-            busy = [w for w in pool if w.task is not None]
-            if not busy:
-                return
-            first_deadline = min(w.deadline for w in busy)
-            timeout = (
-                max(0.0, first_deadline - time.monotonic())
-                if math.isfinite(first_deadline)
-                else None
-            )
-            ready = set(wait([w.conn for w in busy] + [w.process.sentinel for w in busy], timeout))
-            for i, w in enumerate(pool):
-                if w.task is None:
-                    continue
-                result, replace = _collect(w, ready)
-                if result is None:
-                    continue
-                w.task = None
-                if replace:
-                    w.kill()
-                    if queue:
-                        pool[i] = _Worker(ctx)
-                yield result
-    finally:
-        _shut_down(pool)
-
-
-def _dispatch(ctx: Any, w: _Worker, task: CellTask) -> _Worker:
-    """Send ``task`` to idle worker ``w`` (replaced first if it died while idle)."""
-    if not w.process.is_alive():
-        w.kill()
-        w = _Worker(ctx)
-    try:
-        w.conn.send(task)
-    except OSError:  # it died just now: one fresh worker, one more try
-        w.kill()
-        w = _Worker(ctx)
-        w.conn.send(task)
-    w.task = task
-    w.deadline = time.monotonic() + task.time_limit + hard_kill_grace(task.time_limit)
-    return w
-
-
-def _collect(w: _Worker, ready: set) -> tuple[CellResult | None, bool]:
-    """The result of a busy worker if there is one now, and whether to replace the worker."""
-    task = w.task
-    assert task is not None
-    if w.conn in ready:
-        try:
-            return w.conn.recv(), False
-        except (EOFError, OSError):
-            pass
-    if w.conn in ready or w.process.sentinel in ready:
-        w.process.join(5)
-        return CellResult(
-            task.key, "failed", error=f"worker process died (exit code {w.process.exitcode})"
-        ), True
-    if time.monotonic() >= w.deadline:
-        return CellResult(
-            task.key,
-            "timeout",
-            error=f"cell ran past its time limit of {task.time_limit:g} s; "
-            "its worker process was killed",
-        ), True
-    return None, False
-
-
-def _shut_down(pool: list[_Worker]) -> None:
-    for w in pool:
-        if w.process.is_alive():
-            try:
-                w.conn.send(None)
-            except OSError:
-                pass
-    for w in pool:
-        w.process.join(2)
-        if w.process.is_alive():
-            w.process.kill()
-            w.process.join(2)
-
-
-# ------------------------------------------------------------------------------- dask
-
-
-class DaskSession:
-    """Cells on Dask distributed: the cluster at ``scheduler``, or a LocalCluster on loopback.
-
-    A scheduler address is connected to at once, so that a wrong address fails before anything
-    is written; a local cluster starts only when there is something to run.
-    """
-
-    def __init__(self, workers: int, scheduler: str | None) -> None:
-        from distributed import Client
-
-        self.workers, self.cluster, self.client = workers, None, None
-        if scheduler:
-            try:
-                self.client = Client(scheduler, timeout="10s")
-            except (OSError, TimeoutError, ValueError) as exc:  # ValueError: malformed address
-                raise BenchkitInputError(
-                    f"--scheduler {scheduler}: cannot connect: {exc}"
-                ) from None
-
-    def _connect(self) -> Any:
-        if self.client is None:
-            import logging
-
-            from distributed import Client, LocalCluster
-
-            self.cluster = LocalCluster(
-                n_workers=max(1, self.workers),
-                threads_per_worker=1,
-                processes=True,
-                host="127.0.0.1",
-                dashboard_address=None,
-                silence_logs=logging.ERROR,
-            )
-            self.client = Client(self.cluster)
-        return self.client
-
-    def run(self, tasks: Iterable[CellTask]) -> Iterator[CellResult]:
-        """Submit every task (each entity sent to the cluster once); yield results as they end."""
-        from distributed import as_completed
-
-        tasks = list(tasks)
-        if not tasks:
-            return
-        client = self._connect()
-        scattered: dict[int, Any] = {}
-        futures = {}
-        for task in tasks:
-            entity = task.entity
-            if id(entity) not in scattered:
-                scattered[id(entity)] = client.scatter(entity, hash=False)
-            bare = CellTask(**{**task.__dict__, "entity": None})
-            fut = client.submit(execute_task, bare, scattered[id(entity)], pure=False, retries=0)
-            futures[fut] = task
-        for fut in as_completed(list(futures)):
-            task = futures[fut]
-            try:
-                result = fut.result()
-            except Exception as exc:  # a worker lost mid-cell, for example
-                result = CellResult(task.key, "failed", error=f"dask: {_describe(exc)}")
-            yield result
-
-    def close(self) -> None:
-        if self.client is not None:
-            self.client.close()
-        if self.cluster is not None:
-            self.cluster.close()
-
-    def __enter__(self) -> DaskSession:
-        return self
-
-    def __exit__(self, *exc: object) -> None:
-        self.close()
 
 
 # ------------------------------------------------------------------------------- the driver

@@ -1,0 +1,181 @@
+"""The local executor: a pool of worker processes on this machine, fed through pipes.
+
+A worker that dies (a crash in native code, the OOM killer) fails its cell; one still busy a grace
+period past the cell's time limit is killed (status ``timeout``) and a fresh one takes its place.
+"""
+
+from __future__ import annotations
+
+import math
+import multiprocessing
+import os
+import sys
+import threading
+import time
+from collections import deque
+from collections.abc import Iterable, Iterator
+from multiprocessing.connection import wait
+from typing import Any
+
+from benchkit import registry
+from benchkit.protocol import CellResult, CellTask
+from benchkit.worker import execute_task
+
+
+def hard_kill_grace(limit: float) -> float:
+    """Seconds past a cell's time limit after which the local pool kills its worker process:
+    the limit itself, between 1 and 5 seconds."""
+    return max(1.0, min(5.0, limit))
+
+
+def _worker_main(conn: Any) -> None:
+    """Loop of a local worker process: receive a task, send its result, until told to stop."""
+    parent = os.getppid()
+
+    def watch_parent() -> None:
+        # a SIGKILLed driver must not leave workers behind: the kernel re-parents them at once
+        # (even while the dead driver is not reaped yet), so a changed parent means it is gone
+        while os.getppid() == parent:
+            time.sleep(0.25)
+        os._exit(1)
+
+    threading.Thread(target=watch_parent, daemon=True).start()
+    while True:
+        try:
+            message = conn.recv()
+        except (EOFError, OSError):
+            return
+        if message is None:
+            return
+        conn.send(execute_task(message))
+
+
+class _Worker:
+    def __init__(self, ctx: Any) -> None:
+        self.conn, child = ctx.Pipe()
+        self.process = ctx.Process(target=_worker_main, args=(child,), daemon=True)
+        self.process.start()
+        child.close()
+        self.task: CellTask | None = None
+        self.deadline = 0.0
+
+    def kill(self) -> None:
+        """Stop the process at once (it may be stuck in native code)."""
+        self.process.kill()
+        self.process.join(5)
+        self.conn.close()
+
+
+def _context() -> Any:
+    """Fork on Linux (workers inherit the imported harness and detectors at no cost); elsewhere
+    a fork server that has imported them once."""
+    if sys.platform.startswith("linux"):
+        return multiprocessing.get_context("fork")
+    try:  # pragma: no cover - not on Linux
+        ctx = multiprocessing.get_context("forkserver")
+        ctx.set_forkserver_preload(["benchkit.worker", *registry.BUILTIN_MODULES])
+        return ctx
+    except ValueError:  # pragma: no cover - platforms without forkserver
+        return multiprocessing.get_context("spawn")
+
+
+def run_local(tasks: Iterable[CellTask], workers: int) -> Iterator[CellResult]:
+    """Run tasks on ``workers`` local processes; yield results as they finish.
+
+    The workers start at once, before the caller starts a progress bar (or any other thread).
+    A worker that dies (a crash in native code, the OOM killer) fails its cell; one still
+    busy a grace period (:func:`hard_kill_grace`) past the cell's time limit is killed
+    (status ``timeout``). Either way a fresh worker takes its place.
+    """
+    queue = deque(tasks)
+    if not queue:
+        return iter(())
+    ctx = _context()
+    pool = [_Worker(ctx) for _ in range(max(1, min(workers, len(queue))))]
+    return _drive(ctx, pool, queue)
+
+
+def _drive(ctx: Any, pool: list[_Worker], queue: deque) -> Iterator[CellResult]:
+    try:
+        while True:
+            for i, w in enumerate(pool):
+                if w.task is None and queue:
+                    pool[i] = _dispatch(ctx, w, queue.popleft())
+            busy = [w for w in pool if w.task is not None]
+            if not busy:
+                return
+            first_deadline = min(w.deadline for w in busy)
+            timeout = (
+                max(0.0, first_deadline - time.monotonic())
+                if math.isfinite(first_deadline)
+                else None
+            )
+            ready = set(wait([w.conn for w in busy] + [w.process.sentinel for w in busy], timeout))
+            for i, w in enumerate(pool):
+                if w.task is None:
+                    continue
+                result, replace = _collect(w, ready)
+                if result is None:
+                    continue
+                w.task = None
+                if replace:
+                    w.kill()
+                    if queue:
+                        pool[i] = _Worker(ctx)
+                yield result
+    finally:
+        _shut_down(pool)
+
+
+def _dispatch(ctx: Any, w: _Worker, task: CellTask) -> _Worker:
+    """Send ``task`` to idle worker ``w`` (replaced first if it died while idle)."""
+    if not w.process.is_alive():
+        w.kill()
+        w = _Worker(ctx)
+    try:
+        w.conn.send(task)
+    except OSError:  # it died just now: one fresh worker, one more try
+        w.kill()
+        w = _Worker(ctx)
+        w.conn.send(task)
+    w.task = task
+    w.deadline = time.monotonic() + task.time_limit + hard_kill_grace(task.time_limit)
+    return w
+
+
+def _collect(w: _Worker, ready: set) -> tuple[CellResult | None, bool]:
+    """The result of a busy worker if there is one now, and whether to replace the worker."""
+    task = w.task
+    assert task is not None
+    if w.conn in ready:
+        try:
+            return w.conn.recv(), False
+        except (EOFError, OSError):
+            pass
+    if w.conn in ready or w.process.sentinel in ready:
+        w.process.join(5)
+        return CellResult(
+            task.key, "failed", error=f"worker process died (exit code {w.process.exitcode})"
+        ), True
+    if time.monotonic() >= w.deadline:
+        return CellResult(
+            task.key,
+            "timeout",
+            error=f"cell ran past its time limit of {task.time_limit:g} s; "
+            "its worker process was killed",
+        ), True
+    return None, False
+
+
+def _shut_down(pool: list[_Worker]) -> None:
+    for w in pool:
+        if w.process.is_alive():
+            try:
+                w.conn.send(None)
+            except OSError:
+                pass
+    for w in pool:
+        w.process.join(2)
+        if w.process.is_alive():
+            w.process.kill()
+            w.process.join(2)
