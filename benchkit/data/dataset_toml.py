@@ -10,8 +10,9 @@ Keys::
     missing = "error"
 
 ``{data_root}`` in ``path`` is replaced by the ``data_root`` option (``--data-root`` on the
-command line) or else the ``BENCHKIT_DATA_ROOT`` environment variable. A table ``path`` may be
-a single file or a folder of ``.csv`` / ``.parquet`` files (one entity each).
+command line) or else the ``BENCHKIT_DATA_ROOT`` environment variable; a relative data root is
+read from the working directory (other relative paths from the TOML file's folder). A table
+``path`` may be a single file or a folder of ``.csv`` / ``.parquet`` files (one entity each).
 """
 
 from __future__ import annotations
@@ -89,7 +90,8 @@ def resolve_path(toml_path: Path, raw: str, data_root: str | None) -> Path:
                 f"{toml_path}: key 'path' needs the data root; pass --data-root DIR "
                 f"(option data_root) or set {ROOT_VARIABLE} (see datasets/README.md)"
             )
-        raw = raw.replace(PLACEHOLDER, root)
+        # a relative data root is read from the working directory, like any command-line path
+        raw = raw.replace(PLACEHOLDER, os.path.abspath(Path(root).expanduser()))
     else:
         origin = None
     target = Path(raw).expanduser()

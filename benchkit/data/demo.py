@@ -26,7 +26,7 @@ from benchkit.data.demo_kpis import (
     make_drivers,
     noise_draws,
 )
-from benchkit.data.model import Dataset, Entity
+from benchkit.data.model import Dataset, Entity, Event
 from benchkit.errors import DataError
 
 INCIDENT_KINDS = (
@@ -82,9 +82,11 @@ def make_demo(
 
     Returns
     -------
-    Dataset ``demo`` with ``notes["incidents"]`` (entity -> ``[(kind, start, end), ...]``,
-    inclusive test indices, by start), ``notes["incident_channels"]`` (the channels each
-    incident touches, same order), ``notes["pairs"]`` (designated correlated KPI pairs).
+    Dataset ``demo`` whose entities carry ``events`` (culprits: the channels each incident
+    touched; kind: the incident kind) and ``step_seconds``; with ``notes["incidents"]``
+    (entity -> ``[(kind, start, end), ...]``, inclusive test indices, by start),
+    ``notes["incident_channels"]`` (the channels each incident touches, same order),
+    ``notes["pairs"]`` (designated correlated KPI pairs).
     """
     _check_int("seed", seed, 0, 2**63 - 1)
     _check_int("n_entities", n_entities, 1, 1000)
@@ -191,7 +193,7 @@ def _make_node(
     scale, low, high = train.std(axis=0), train.min(axis=0), train.max(axis=0)
     plan = _plan(rng, counts, n_test)
     labels = np.zeros(n_test, dtype=np.int8)
-    touched = []
+    touched, events = [], []
     for kind, start, end in plan:
         cols = _pick_channels(rng, kind, channels, pairs)
         a, b = n_train + start, n_train + end + 1
@@ -203,9 +205,16 @@ def _make_node(
             _disturb(rng, kind, series, a, b, cols, scale[cols])
         labels[start : end + 1] = 1
         touched.append(tuple(channels[c] for c in cols))
+        events.append(Event(start, end, tuple(int(c) for c in np.sort(cols)), kind))
     series = np.round(clip_physical(series), 4)
     entity = Entity(
-        name=name, train=series[:n_train], test=series[n_train:], labels=labels, channels=channels
+        name=name,
+        train=series[:n_train],
+        test=series[n_train:],
+        labels=labels,
+        channels=channels,
+        events=tuple(events),
+        step_seconds=60.0 * STEP_MINUTES,
     )
     return entity, plan, touched
 

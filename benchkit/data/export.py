@@ -15,6 +15,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from benchkit.data.event_metadata import INTERPRETATION_FOLDER, KINDS_COLUMNS, KINDS_FILE
 from benchkit.data.model import Dataset
 from benchkit.data.split_folder import CHANNELS_FILE, FOLDERS
 from benchkit.errors import DataError
@@ -28,6 +29,9 @@ def export_split_folder(dataset: Dataset, directory: str | Path) -> Path:
     Writes ``train/``, ``test/``, ``test_label/`` (one ``<entity>.txt`` each),
     ``channels.txt`` and, when the dataset notes list incidents, ``incidents.csv``
     (entity, kind, start, end, channels; inclusive test indices) for people to read.
+    Event metadata goes to ``interpretation_label/<entity>.txt`` (culprits) and
+    ``anomaly_type.csv`` (kinds), with ``END`` inclusive (the loader's default). The step
+    length has no file: load the folder with ``step=`` to restore it.
     """
     target = Path(directory)
     if target.exists() and (not target.is_dir() or any(target.iterdir())):
@@ -58,6 +62,7 @@ def _write_all(dataset: Dataset, root: Path) -> None:
     if dataset.entities:
         channels = dataset.entities[0].channels
         (root / CHANNELS_FILE).write_text("".join(f"{c}\n" for c in channels))
+    _write_event_metadata(dataset, root)
     incidents = dataset.notes.get("incidents")
     if incidents:
         _write_incidents(root / INCIDENTS_FILE, incidents, dataset.notes.get("incident_channels"))
@@ -76,3 +81,26 @@ def _write_incidents(path: Path, incidents: dict, channels: dict | None) -> None
             names = (channels or {}).get(entity, [()] * len(events))
             for (kind, start, end), touched in zip(events, names, strict=True):
                 writer.writerow([entity, kind, start, end, ";".join(touched)])
+
+
+def _write_event_metadata(dataset: Dataset, root: Path) -> None:
+    with_culprits = [e for e in dataset.entities if e.has_culprits]
+    if with_culprits:
+        (root / INTERPRETATION_FOLDER).mkdir()
+    for entity in with_culprits:
+        lines = [
+            f"{ev.start}-{ev.end}:{','.join(str(c + 1) for c in ev.culprits)}\n"
+            for ev in entity.events
+            if ev.culprits is not None
+        ]
+        (root / INTERPRETATION_FOLDER / f"{entity.name}.txt").write_text("".join(lines))
+    with_kinds = [e for e in dataset.entities if e.has_kinds]
+    if not with_kinds:
+        return
+    with (root / KINDS_FILE).open("w", newline="") as fh:
+        writer = csv.writer(fh, lineterminator="\n")
+        writer.writerow(KINDS_COLUMNS)
+        for entity in with_kinds:
+            for ev in entity.events:
+                if ev.kind is not None:
+                    writer.writerow([entity.name, f"{ev.start}-{ev.end}", ev.kind])

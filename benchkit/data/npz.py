@@ -10,6 +10,7 @@ from pathlib import Path
 import numpy as np
 
 from benchkit.data.model import Dataset, Entity
+from benchkit.data.step import step_from_timestamps
 from benchkit.data.validate import (
     Locator,
     check_channel_count,
@@ -44,6 +45,8 @@ def load_npz(path: str | Path, missing: str = "error") -> Dataset:
     check_channel_count(train.shape[1], test.shape[1], f"{path}: train", f"{path}: test")
     labels = check_labels(_vector(arrays, "labels", path), Locator(str(path), array="labels"))
     check_label_length(labels, test.shape[0], f"{path}: labels", f"{path}: test")
+    train_stamps = _stamps(arrays, "train_timestamps", path, train.shape[0])
+    test_stamps = _stamps(arrays, "test_timestamps", path, test.shape[0])
     entity = Entity(
         name=path.stem,
         train=train,
@@ -51,8 +54,9 @@ def load_npz(path: str | Path, missing: str = "error") -> Dataset:
         labels=labels,
         channels=_channels(arrays, path, train.shape[1]),
         train_labels=_train_labels(arrays, path, train.shape[0]),
-        train_timestamps=_stamps(arrays, "train_timestamps", path, train.shape[0]),
-        test_timestamps=_stamps(arrays, "test_timestamps", path, test.shape[0]),
+        train_timestamps=train_stamps,
+        test_timestamps=test_stamps,
+        step_seconds=step_from_timestamps(train_stamps, test_stamps),
     )
     notes: dict = {}
     if filled_train + filled_test:

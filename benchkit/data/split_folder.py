@@ -3,6 +3,10 @@
 
 An optional ``ROOT/channels.txt`` (one channel name per line) names the channels; without it
 they are ``c01``, ``c02``, ... (1-based, as the file's columns).
+
+Optional per-event metadata: ``ROOT/interpretation_label/<entity>.txt`` (culprit KPIs) and
+``ROOT/anomaly_type.csv`` (incident kinds); see :mod:`benchkit.data.event_metadata` for their
+format, the ``interpretation_end`` option and how lines are matched to events.
 """
 
 from __future__ import annotations
@@ -12,7 +16,17 @@ from pathlib import Path
 
 import numpy as np
 
+from benchkit.data.event_metadata import (
+    INTERPRETATION_FOLDER,
+    KINDS_FILE,
+    attach_culprits,
+    attach_kinds,
+    check_end_convention,
+    read_interpretation,
+    read_kinds,
+)
 from benchkit.data.model import Dataset, Entity
+from benchkit.data.step import parse_step
 from benchkit.data.textio import frame_to_matrix, read_csv_frame
 from benchkit.data.validate import (
     Locator,
@@ -31,16 +45,26 @@ from benchkit.errors import DataError
 
 FOLDERS = ("train", "test", "test_label")
 CHANNELS_FILE = "channels.txt"
-OPTIONS = ("missing",)
+OPTIONS = ("missing", "step", "interpretation_end")
 
 
-def load_split_folder(root: str | Path, missing: str = "error") -> Dataset:
+def load_split_folder(
+    root: str | Path,
+    missing: str = "error",
+    step: str | float | None = None,
+    interpretation_end: str = "inclusive",
+) -> Dataset:
     """Load every entity of a split-folder root.
 
     Parameters
     ----------
     root : folder holding ``train/``, ``test/`` and ``test_label/``.
     missing : ``"error"`` (NaN/inf is a DataError) or ``"ffill"`` (fill and report the count).
+    step : the step length (``"5min"``, ``"1min"``, ``"30s"`` or seconds); sets
+      ``Entity.step_seconds`` (``None`` without it: the files hold no timestamps).
+    interpretation_end : how ``END`` is written in ``interpretation_label/`` and
+      ``anomaly_type.csv``: ``"inclusive"`` (the event's last index) or ``"exclusive"``
+      (one past it).
 
     Returns
     -------
@@ -49,13 +73,18 @@ def load_split_folder(root: str | Path, missing: str = "error") -> Dataset:
     """
     root = Path(root)
     check_missing_policy(str(root), missing)
+    step_seconds = None if step is None else parse_step(str(root), step)
+    end_convention = check_end_convention(str(root), interpretation_end)
     names = entity_names(root)
     channels = read_channel_names(root)
+    kinds_path = root / KINDS_FILE
+    kinds = read_kinds(kinds_path, end_convention) if kinds_path.is_file() else None
     entities: list[Entity] = []
     filled: dict[str, int] = {}
     constant: dict[str, list[str]] = {}
     for name in names:
         entity, n_filled = _load_entity(root, name, channels, missing)
+        _add_metadata(root, entity, step_seconds, end_convention, kinds)
         if entities:
             check_same_layout(
                 entities[0].channels, entity.channels, str(root / "train" / f"{name}.txt")
@@ -152,3 +181,23 @@ def _load_entity(
         warn_filled(str(path), count)
     entity = Entity(name=name, train=train, test=test, labels=labels, channels=channels)
     return entity, filled_train + filled_test
+
+
+def _add_metadata(
+    root: Path,
+    entity: Entity,
+    step_seconds: float | None,
+    end_convention: str,
+    kinds: dict | None,
+) -> None:
+    """Step length, culprit KPIs and kinds from the optional files, matched by overlap."""
+    entity.step_seconds = step_seconds
+    events = entity.events
+    path = root / INTERPRETATION_FOLDER / f"{entity.name}.txt"
+    if path.is_file():
+        lines = read_interpretation(path, entity.n_channels, entity.test.shape[0], end_convention)
+        events = attach_culprits(events, lines, path)
+    if kinds is not None:
+        lines = kinds.get(entity.name, [])
+        events = attach_kinds(events, lines, root / KINDS_FILE, entity.name, entity.test.shape[0])
+    entity.events = events

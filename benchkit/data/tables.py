@@ -11,6 +11,7 @@ import numpy as np
 import pandas as pd
 
 from benchkit.data.model import Dataset, Entity
+from benchkit.data.step import step_from_timestamps
 from benchkit.data.textio import column_to_float, frame_to_matrix, read_csv_frame
 from benchkit.data.validate import (
     Locator,
@@ -159,6 +160,7 @@ def _load_table(
         train_timestamps=None if stamps is None else stamps[:n_train],
         test_timestamps=None if stamps is None else stamps[n_train:],
         train_labels=labels[:n_train],
+        step_seconds=step_from_timestamps(stamps),
     )
     return entity, filled
 

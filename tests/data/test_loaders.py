@@ -32,11 +32,14 @@ def _same_arrays(a: Entity, b: Entity) -> None:
 def test_export_demo_then_load_gives_identical_arrays_and_fingerprint(tmp_path, capsys):
     target = tmp_path / "demo-files"
     assert main(["datasets", "export-demo", str(target), "-o", "seed=3", "-q"]) == 0
-    loaded = load(str(target))
+    # the folder carries culprits and kinds; the step length comes back through the option
+    loaded = load(str(target), step="5min")
     demo = make_demo(seed=3)
     assert [e.name for e in loaded.entities] == [e.name for e in demo.entities]
     for a, b in zip(loaded.entities, demo.entities, strict=True):
         _same_arrays(a, b)
+        assert a.events == b.events and a.has_culprits and a.has_kinds
+        assert a.step_seconds == b.step_seconds == 300.0
         assert a.fingerprint() == b.fingerprint()
     assert loaded.fingerprint() == demo.fingerprint()
     assert capsys.readouterr().out == ""

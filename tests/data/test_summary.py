@@ -8,7 +8,9 @@ from scipy import ndimage
 
 from benchkit.cli import main
 from benchkit.data import Dataset, Entity, labels_to_events
-from benchkit.data.summary import COLUMNS, summary_rows
+from benchkit.data.demo import DEFAULT_COUNTS, INCIDENT_KINDS
+from benchkit.data.model import Event
+from benchkit.data.summary import COLUMNS, kind_counts, summary_rows
 
 
 def test_events_worked_example():
@@ -51,6 +53,9 @@ def test_summary_rows_by_hand():
         "event len min": 2,
         "median": 3.0,
         "max": 4,
+        "step": "-",
+        "with culprits": 0,
+        "median culprits": None,
     }
     assert y["events"] == 0 and y["event len min"] is None and y["anomaly %"] == 0.0
     # all: 6 of 14 labelled steps, train 12
@@ -65,7 +70,41 @@ def test_cli_show_demo_prints_the_table(capsys):
     header = out[1].split()
     for word in ("entity", "train", "test", "channels", "anomaly", "events", "median", "max"):
         assert word in header
-    body = [line.split() for line in out[3:]]
+    body = [line.split() for line in out[3 : out.index("")]]
     assert [row[0] for row in body] == ["pay-gw-01", "pay-gw-02", "pay-gw-03", "all"]
     assert all(row[1:4] == ["3000", "2500", "16"] for row in body[:3])
-    assert len(COLUMNS) == 9 and all(len(row) == 9 for row in body)
+    assert len(COLUMNS) == 12 and all(len(row) == 12 for row in body[:4])
+    # the demo records its step (5 minutes) and the channels each incident touched
+    assert all(row[4] == "5min" and row[6] == row[10] == "7" for row in body[:3])
+    kinds = out[out.index("") + 1 :]
+    assert kinds[0].split()[3:] == sorted(INCIDENT_KINDS)
+    # default incidents per node: two spikes and one of each other kind (demo docstring)
+    assert kinds[-1].split() == [
+        "all",
+        *(str(3 * DEFAULT_COUNTS[k]) for k in sorted(INCIDENT_KINDS)),
+    ]
+
+
+def test_summary_metadata_by_hand():
+    labels = np.array([0, 1, 1, 0, 1, 0, 1, 1, 1, 0], dtype=np.int8)
+    events = (
+        Event(1, 2, (0, 1), "metric"),
+        Event(4, 4, None, "temporal"),
+        Event(6, 8, (1,), "metric"),
+    )
+    x = Entity(
+        "x",
+        np.zeros((6, 2)),
+        np.zeros((10, 2)),
+        labels,
+        ("a", "b"),
+        events=events,
+        step_seconds=60.0,
+    )
+    y = _entity("y", [0, 1, 0])
+    rows = summary_rows(Dataset("t", [x, y]))
+    # by hand: two of x's three events list culprits, of 2 and 1 KPIs (median 1.5)
+    assert rows[0]["step"] == "1min" and rows[1]["step"] == "-" and rows[2]["step"] == "mixed"
+    assert (rows[0]["with culprits"], rows[0]["median culprits"]) == (2, 1.5)
+    assert (rows[2]["with culprits"], rows[2]["median culprits"]) == (2, 1.5)
+    assert kind_counts(Dataset("t", [x, y])) == {"x": {"metric": 2, "temporal": 1}, "y": {}}
