@@ -212,9 +212,11 @@ def environment() -> dict[str, Any]:
     import subprocess
     from importlib.metadata import PackageNotFoundError, version
 
+    from benchkit import DISTRIBUTION
+
     packages = {}
     for name in (
-        "benchkit",
+        DISTRIBUTION,
         "numpy",
         "scipy",
         "pandas",

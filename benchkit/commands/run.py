@@ -95,34 +95,66 @@ def main(args: argparse.Namespace) -> int:
         return 0
     workers = _workers(args.workers)
     spec = load_spec(args.spec) if args.spec else default_spec()
-    out = _out_folder(args.out, spec)
-    summary = run_experiment(
+    out, summary = execute(
         spec,
-        out,
+        args.out,
         executor=args.executor,
         workers=workers,
         scheduler=args.scheduler,
         quiet=args.quiet,
         data_root=args.data_root,
     )
+    print_summary(out, summary)
+    written = write_outputs(out)
+    print(f"report: {written['html']}")
+    print(f"results: {out}")
+    return 0 if summary.ok else EXIT_SOME_FAILED
+
+
+def execute(
+    spec: ExperimentSpec,
+    out: str | Path | None,
+    *,
+    executor: str | None = None,
+    workers: int | None = None,
+    scheduler: str | None = None,
+    quiet: bool = False,
+    data_root: str | Path | None = None,
+) -> tuple[Path, RunSummary]:
+    """Check the results folder and run ``spec`` into it (what ``benchkit run`` does before
+    its report); ``out=None`` makes a new folder under ``results/runs/``.
+
+    Returns the results folder and the run's summary. Bad input raises SpecError or DataError
+    before anything is written.
+    """
+    folder = _out_folder(None if out is None else str(out), spec)
+    summary = run_experiment(
+        spec,
+        folder,
+        executor=executor,
+        workers=workers,
+        scheduler=scheduler,
+        quiet=quiet,
+        data_root=data_root,
+    )
+    return folder, summary
+
+
+def print_summary(out: Path, summary: RunSummary) -> None:
+    """Print the summary table and the cell counts to stdout, failures to stderr."""
     with Store(out) as store:
         print(summary_table(store, summary.run_id))
     print(_counts_line(summary))
     for line in _failure_lines(summary):
         print(line, file=sys.stderr)
-    _write_outputs(out)
-    print(f"results: {out}")
-    return 0 if summary.ok else EXIT_SOME_FAILED
 
 
-def _write_outputs(out: Path) -> None:
-    """Write the report of OUT: tables, plots, ``report.html`` and ``scorecard.json``."""
+def write_outputs(out: Path) -> dict[str, Path]:
+    """Write the report of OUT (tables, plots, ``report.html``, ``scorecard.json``) with the
+    default settings; return ``name -> path`` of every file written."""
     from benchkit.report import write_all
 
-    written = write_all(out)
-    report = written.get("html")
-    if report is not None:
-        print(f"report: {report}")
+    return write_all(out)
 
 
 def summary_table(store: Store, run_id: int) -> str:
