@@ -1,0 +1,54 @@
+"""Speed of the exact alert curve against the exact best-F1 search, measured side by side.
+
+Run: ``.venv/bin/python benchmarks/alerts_speed.py [--quick]``. Times are medians of repeats taken
+in alternation in one run (other work on the machine hits both alike); the ratio is
+alert_curve / best_f1(adjust="point"). Target (issue 14): at n = 1,000,000 with 1,000 events,
+alert_curve costs at most 2x best_f1(adjust="point"), for merge_gap 0 and a larger gap.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+
+from metrics_speed import make_case, median_seconds, verdict  # noqa: E402
+
+from benchkit.metrics import alert_curve, best_f1  # noqa: E402
+
+TARGET = 2.0
+
+
+def curve_speed(n: int, events: int, repeats: int, judge: bool) -> None:
+    scores, labels = make_case(n, events)
+    calls = {
+        "best_f1 adjust=point": lambda: best_f1(scores, labels, "point"),
+        "alert_curve merge_gap=0": lambda: alert_curve(scores, labels, 0),
+        "alert_curve merge_gap=12": lambda: alert_curve(scores, labels, 12),
+    }
+    seconds = median_seconds(calls, dict.fromkeys(calls, repeats))
+    base = seconds["best_f1 adjust=point"]
+    print(f"alert_curve vs best_f1(adjust='point'), n={n:,}, {events:,} events, "
+          f"median of {repeats}")
+    for name, value in seconds.items():
+        ratio = value / base
+        note = "" if name == "best_f1 adjust=point" else verdict(
+            ratio <= TARGET, f"<= {TARGET:.1f}x", judge
+        )
+        print(f"  {name:28s} {value * 1e3:9.1f} ms  {ratio:6.2f}x{note}")
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--quick", action="store_true", help="smaller size, fewer repeats")
+    args = parser.parse_args()
+    if args.quick:
+        curve_speed(100_000, 100, 3, judge=False)
+        return
+    curve_speed(1_000_000, 1_000, 15, judge=True)
+
+
+if __name__ == "__main__":
+    main()

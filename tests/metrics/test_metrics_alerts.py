@@ -1,0 +1,154 @@
+"""Alerts: count_alerts by hand, and the exact alert curve against a brute-force loop.
+
+Common practice, no source: operators judge a detector by the false alerts per day it pages
+someone with and by how soon it catches an incident; these tests check our counting of those
+alerts, defined in benchkit.metrics.alerts (an alert is a maximal run of predicted points, runs
+at most ``merge_gap`` unpredicted steps apart merge, and an alert whose span overlaps a labelled
+event is true).
+"""
+
+import math
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from benchkit.metrics import (
+    MetricInputError,
+    alert_curve,
+    count_alerts,
+    event_recall,
+    labels_to_events,
+)
+from benchkit.metrics.alerts import dense_levels
+
+
+def _brute_count(pred, labels, gap):
+    """Reference by a plain loop over steps: open an alert at a predicted step, extend it while
+    the next predicted step is at most ``gap`` unpredicted steps away, then look at its span."""
+    predicted = [t for t, p in enumerate(pred) if p]
+    true = false = 0
+    i = 0
+    while i < len(predicted):
+        j = i
+        while j + 1 < len(predicted) and predicted[j + 1] - predicted[j] - 1 <= gap:
+            j += 1
+        span = labels[predicted[i] : predicted[j] + 1]
+        if any(span):
+            true += 1
+        else:
+            false += 1
+        i = j + 1
+    return true, false
+
+
+# Hand-worked (common practice, no source): labels   0 0 1 1 0 0 0 0 1 0
+#                                          pred     1 0 0 1 1 0 1 1 0 0
+# alerts without merging: [0], [3..4], [6..7]; [3..4] overlaps the first event -> 1 true, 2 false.
+# with merge_gap=1: [0] and [3..4] are 2 steps apart (stay apart); [3..4] and [6..7] are 1 step
+# apart -> [3..7], which overlaps the events at 2..3 and 8? no, 3..7 overlaps 2..3 -> 1 true,
+# 1 false ([0]). With merge_gap=2: [0..7] is one alert -> 1 true, 0 false.
+LABELS = np.array([0, 0, 1, 1, 0, 0, 0, 0, 1, 0])
+PRED = np.array([1, 0, 0, 1, 1, 0, 1, 1, 0, 0])
+
+
+@pytest.mark.parametrize(("gap", "want"), [(0, (1, 2)), (1, (1, 1)), (2, (1, 0)), (9, (1, 0))])
+def test_count_alerts_hand_worked(gap, want):
+    assert count_alerts(PRED, LABELS, merge_gap=gap) == want
+
+
+def test_count_alerts_straddling_alert_is_true():
+    # Hand-worked: the runs at 1 and 5 merge with merge_gap=3 into the span [1..5], which
+    # contains the event at 3 although no predicted step is inside it.
+    labels = np.array([0, 0, 0, 1, 0, 0, 0])
+    pred = np.array([0, 1, 0, 0, 0, 1, 0])
+    assert count_alerts(pred, labels, merge_gap=3) == (1, 0)
+    assert count_alerts(pred, labels, merge_gap=2) == (0, 2)
+
+
+def test_count_alerts_edges():
+    assert count_alerts(np.zeros(5), np.zeros(5)) == (0, 0)
+    assert count_alerts(np.ones(5), np.zeros(5)) == (0, 1)
+    assert count_alerts(np.ones(5), np.ones(5)) == (1, 0)
+    assert count_alerts([], []) == (0, 0)
+
+
+@pytest.mark.parametrize("bad", [-1, 1.5, True, "2"])
+def test_merge_gap_must_be_a_non_negative_integer(bad):
+    with pytest.raises(MetricInputError, match="merge_gap"):
+        count_alerts(PRED, LABELS, merge_gap=bad)
+    with pytest.raises(MetricInputError, match="merge_gap"):
+        alert_curve(PRED.astype(float), LABELS, merge_gap=bad)
+
+
+@st.composite
+def cases(draw):
+    n = draw(st.integers(1, 40))
+    labels = np.array(draw(st.lists(st.integers(0, 1), min_size=n, max_size=n)), dtype=np.int8)
+    values = st.one_of(st.integers(0, 7).map(float), st.just(-math.inf))
+    scores = np.array(draw(st.lists(values, min_size=n, max_size=n)))
+    return scores, labels, draw(st.integers(0, 5))
+
+
+@settings(max_examples=150, deadline=None)
+@given(case=cases())
+def test_alert_curve_equals_brute_force_at_every_threshold(case):
+    scores, labels, gap = case
+    curve = alert_curve(scores, labels, merge_gap=gap)
+    # reference: every distinct finite score, thresholded one by one (common practice, no source)
+    want = np.unique(scores[np.isfinite(scores)])[::-1]
+    np.testing.assert_array_equal(curve.thresholds, want)
+    for i, theta in enumerate(want):
+        pred = (scores >= theta).astype(np.int8)
+        assert curve.false_alerts[i] == _brute_count(pred, labels, gap)[1]
+        assert count_alerts(pred, labels, gap) == _brute_count(pred, labels, gap)
+        assert curve.event_recall[i] == pytest.approx(event_recall(pred, labels), abs=1e-12)
+
+
+def test_alert_curve_on_long_random_series_matches_brute_force():
+    rng = np.random.default_rng(7)
+    n = 1500
+    labels = (rng.random(n) < 0.01).astype(np.int8)
+    labels = np.maximum.reduce([np.roll(labels, k) for k in range(6)])  # events of ~6 steps
+    scores = np.round(rng.normal(size=n) + labels, 1)
+    for gap in (0, 3, 17):
+        curve = alert_curve(scores, labels, gap)
+        for i in range(0, len(curve.thresholds), 3):
+            pred = scores >= curve.thresholds[i]
+            assert curve.false_alerts[i] == _brute_count(pred, labels, gap)[1]
+    assert len(labels_to_events(labels)) > 10
+
+
+def test_alert_curve_without_events_or_thresholds():
+    curve = alert_curve([3.0, 1.0, 3.0, 2.0], [0, 0, 0, 0])
+    np.testing.assert_array_equal(curve.thresholds, [3.0, 2.0, 1.0])
+    # hand-worked: >= 3 predicts 1 0 1 0 (2 alerts), >= 2 predicts 1 0 1 1 (2), >= 1 all (1)
+    np.testing.assert_array_equal(curve.false_alerts, [2, 2, 1])
+    np.testing.assert_array_equal(curve.event_recall, [0.0, 0.0, 0.0])
+    empty = alert_curve([-math.inf, -math.inf], [0, 1])
+    assert len(empty.thresholds) == len(empty.false_alerts) == len(empty.event_recall) == 0
+
+
+@pytest.mark.parametrize("base", [1.0, -2.5, 0.0, 1e300, -1e-300])
+def test_levels_are_exact_for_scores_one_ulp_apart(base):
+    # Scores that differ only in their last bits (and ties) must still be told apart exactly;
+    # reference: numpy.unique.
+    rng = np.random.default_rng(3)
+    steps = rng.integers(0, 9, 500)
+    scores = np.array([base])
+    for _ in range(8):
+        scores = np.append(scores, np.nextafter(scores[-1], np.inf))
+    scores = scores[steps]
+    scores[rng.random(500) < 0.05] = -np.inf
+    thresholds, level = dense_levels(scores)
+    np.testing.assert_array_equal(thresholds, np.unique(scores[np.isfinite(scores)])[::-1])
+    np.testing.assert_array_equal(np.append(thresholds, -np.inf)[level], scores)
+
+
+def test_negative_zero_is_zero():
+    # IEEE 754: -0.0 == 0.0, so they are one threshold (reference: numpy.unique)
+    scores = np.array([0.0, -0.0, 1.0, -0.0, -1.0])
+    thresholds, level = dense_levels(scores)
+    np.testing.assert_array_equal(thresholds, [1.0, 0.0, -1.0])
+    np.testing.assert_array_equal(level, [1, 1, 0, 1, 2])
