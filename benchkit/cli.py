@@ -21,6 +21,8 @@ COMMAND_MODULES = (
     "benchkit.commands.verify",
     "benchkit.commands.rescore",
     "benchkit.commands.export",
+    "benchkit.commands.export_model",
+    "benchkit.commands.apply",
 )
 
 

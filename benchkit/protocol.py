@@ -97,7 +97,9 @@ class Evaluation:
 class CellTask:
     """Everything a worker needs to compute one cell (picklable).
 
-    With ``cached_scores`` set, the detector is not run: only :func:`evaluate` is.
+    With ``cached_scores`` set, the detector is not run: only :func:`evaluate` is. With
+    ``save_to`` (a file path), the fitted detector is saved there with ``save(path)`` after
+    scoring (``benchkit export-model`` refits a cell this way).
     """
 
     key: str
@@ -111,6 +113,7 @@ class CellTask:
     time_limit: float
     entity: Entity | None = None
     cached_scores: dict[str, Any] | None = None
+    save_to: str | None = None
 
 
 @dataclass
@@ -244,6 +247,8 @@ def run_cell(task: CellTask) -> CellResult:
     test_scores = check_scores(raw, warmup + test.shape[0], warmup, "test")[warmup:]
     labels = np.asarray(entity.labels, dtype=np.int8)
     metrics, used = evaluate(test_scores, train_scores, labels, warmup, task.evaluation)
+    if task.save_to is not None:
+        detector.save(task.save_to)
     scores = {
         "test_scores": test_scores,
         "train_scores": train_scores,

@@ -7,19 +7,26 @@ the same battery and returns the :class:`CheckReport` without raising (the CLI p
 ``quick=True`` (for slow models) skips the checks that need extra fits or long series
 (``refit``, ``single-channel``, ``constant-channel``, ``speed``); causality and determinism
 always run.
+
+``persistence`` saves the fitted reference detector with ``save(path)``, reads it back with
+``Cls.load(path)`` and requires bit-identical scores; a detector without ``save``/``load`` has
+it skipped (``benchkit export-model`` refuses such a detector with a message saying so).
 """
 
 from __future__ import annotations
 
+import tempfile
 import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
+from pathlib import Path
 from typing import Any
 
 import numpy as np
 from tabulate import tabulate
 
 from benchkit.detector import WARMUP_SCORE, Detector, Param
+from benchkit.persist import has_persistence
 
 PASSED, FAILED, SKIPPED = "passed", "failed", "skipped"
 SPEED_STEPS = 10_000
@@ -74,6 +81,10 @@ class CheckReport:
 
 class _Fail(Exception):
     """Raised inside a check with the reason it failed."""
+
+
+class _Skip(Exception):
+    """Raised inside a check that does not apply to the detector, with the reason."""
 
 
 def _require(condition: bool, message: str) -> None:
@@ -318,6 +329,25 @@ def _check_nan_refused(ctx: _Context) -> str:
     return "fit and score raise ValueError"
 
 
+def _check_persistence(ctx: _Context) -> str:
+    """``save(path)`` then ``Cls.load(path)`` scores the test series bit for bit the same."""
+    if not has_persistence(ctx.cls):
+        raise _Skip("no save(path)/load(path): benchkit export-model cannot bundle it")
+    det, scores, _ = ctx.reference()
+    with tempfile.TemporaryDirectory(prefix="benchkit-contract-") as tmp:
+        path = Path(tmp) / "model"
+        det.save(path)
+        _require(path.is_file(), "save(path) wrote no file at path")
+        loaded = ctx.cls.load(path)
+        _require(isinstance(loaded, ctx.cls), f"load returned {type(loaded).__name__}")
+        _require(loaded.get_params() == det.get_params(), "load changed the hyperparameters")
+        again = loaded.score(ctx.test)
+    _require(np.array_equal(again, scores, equal_nan=True),
+             f"the loaded detector scores differently (first at step "
+             f"{_first_difference(again, scores)})")
+    return "save/load round trip, bit-identical scores"
+
+
 def _check_speed(ctx: _Context) -> str:
     det, _, _ = ctx.reference()
     long = make_check_data(SPEED_STEPS, 4, seed=14)
@@ -343,6 +373,7 @@ CHECKS: tuple[tuple[str, Callable[[_Context], str], bool], ...] = (
     ("single-channel", _check_single_channel, False),
     ("constant-channel", _check_constant_channel, False),
     ("nan-refused", _check_nan_refused, True),
+    ("persistence", _check_persistence, True),
     ("speed", _check_speed, False),
 )
 CHECK_NAMES: tuple[str, ...] = tuple(name for name, _, _ in CHECKS)
@@ -386,6 +417,8 @@ def run_checks(
             detail, status = check(ctx), PASSED
         except _Fail as exc:
             detail, status = str(exc), FAILED
+        except _Skip as exc:
+            detail, status = str(exc), SKIPPED
         except Exception as exc:  # a crash inside the detector fails this check only
             detail, status = f"raised {type(exc).__name__}: {exc}", FAILED
         seconds = time.perf_counter() - start

@@ -12,6 +12,7 @@ from typing import Any, ClassVar
 import numpy as np
 
 from benchkit.detector import WARMUP_SCORE, Detector, Param, check_series
+from benchkit.persist import load_refit_state, save_refit_state
 from benchkit.windows import sliding_windows
 
 FEATURE_SETS: dict[str, tuple[str, ...]] = {
@@ -101,7 +102,23 @@ class FeatureModelDetector(Detector):
         rows = rows[subsample_rows(rows.shape[0], self.max_train, rng)]
         self.n_channels_ = train.shape[1]
         self.model_ = self._fit_model(rows, rng)
+        self.fit_train_ = train  # a reference (no copy): what save() records for a refit
         return self
+
+    def save(self, path: Any) -> None:
+        """Save the training series and digests; PyOD's fitted models are never pickled.
+
+        :meth:`load` refits with the same hyperparameters and seed and refuses when the data or
+        the refit's scores differ (see :mod:`benchkit.persist`).
+        """
+        if not hasattr(self, "fit_train_"):
+            raise RuntimeError(f"{self.name}: call fit() before save()")
+        save_refit_state(self, self.fit_train_, path)
+
+    @classmethod
+    def load(cls, path: Any) -> FeatureModelDetector:
+        """A fitted detector refitted from a file written by :meth:`save`."""
+        return load_refit_state(cls, path)
 
     def score(self, series: np.ndarray) -> np.ndarray:
         series = check_series(series, "series", self.n_channels_)

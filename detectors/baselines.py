@@ -9,16 +9,18 @@ from __future__ import annotations
 import numpy as np
 
 from benchkit.detector import WARMUP_SCORE, Detector, Param, check_series
+from benchkit.persist import SavesArrays
 from benchkit.registry import register
 
 
 @register
-class RandomScores(Detector):
+class RandomScores(SavesArrays, Detector):
     """Uniform random scores in [0, 1) from the seed; they ignore the data entirely."""
 
     name = "random"
     description = "uniform random scores from the seed (a floor every method must beat)"
     params = (Param("seed", int, 0, "seed of the score stream", low=0),)
+    fitted_state = ("n_channels_",)
 
     def fit(self, train: np.ndarray) -> RandomScores:
         self.n_channels_ = check_series(train, "train").shape[1]
@@ -38,7 +40,7 @@ _NORMS = {
 
 
 @register
-class StepChange(Detector):
+class StepChange(SavesArrays, Detector):
     """Magnitude of the one-step difference ``x_t - x_{t-1}`` across channels."""
 
     name = "step-change"
@@ -46,6 +48,7 @@ class StepChange(Detector):
     params = (
         Param("norm", str, "l2", "how channel differences combine", choices=tuple(_NORMS)),
     )
+    fitted_state = ("n_channels_",)
 
     @property
     def warmup(self) -> int:

@@ -19,6 +19,7 @@ from __future__ import annotations
 import numpy as np
 
 from benchkit.detector import WARMUP_SCORE, Detector, Param, check_series
+from benchkit.persist import SavesArrays
 from benchkit.registry import register
 
 _R_CLIP = 0.999  # |r| is clipped below 1 so Fisher's z stays finite
@@ -63,7 +64,7 @@ def rolling_fisher_z(series: np.ndarray, window: int, first: np.ndarray, second:
 
 
 @register
-class CorrelationBreak(Detector):
+class CorrelationBreak(SavesArrays, Detector):
     """Departure of rolling pairwise correlations from their robust training values."""
 
     name = "correlation-break"
@@ -78,6 +79,8 @@ class CorrelationBreak(Detector):
               low=0.0, high=10.0),
         Param("cap", float, 10.0, "largest departure one pair can contribute", low=1.0),
     )
+    fitted_state = ("n_channels_", "first_", "second_", "centre_", "spread_", "weight_",
+                    "incidence_")  # fmt: skip
 
     def fit(self, train: np.ndarray) -> CorrelationBreak:
         train = check_series(train, "train")

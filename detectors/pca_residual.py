@@ -18,6 +18,7 @@ import numpy as np
 from scipy import stats
 
 from benchkit.detector import Detector, Param, check_series
+from benchkit.persist import SavesArrays
 from benchkit.registry import register
 
 _EIG_FLOOR = 1e-12  # eigenvalues below this (relative to the largest) count as zero
@@ -62,7 +63,7 @@ def t2_control_limit(n_components: int, n_train: int, alpha: float) -> float | N
 
 
 @register
-class PCAResidual(Detector):
+class PCAResidual(SavesArrays, Detector):
     """Squared prediction error after projecting onto the leading principal components."""
 
     name = "pca-residual"
@@ -77,6 +78,8 @@ class PCAResidual(Detector):
         Param("alpha", float, 0.01, "false-alarm rate of the control limits",
               low=1e-6, high=0.5),
     )
+    fitted_state = ("mean_", "eigenvalues_", "n_components_", "loadings_", "n_train_",
+                    "q_limit_", "t2_limit_")  # fmt: skip
 
     def fit(self, train: np.ndarray) -> PCAResidual:
         train = check_series(train, "train")

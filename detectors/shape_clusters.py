@@ -13,6 +13,7 @@ import warnings
 import numpy as np
 
 from benchkit.detector import WARMUP_SCORE, Detector, Param, check_series
+from benchkit.persist import SavesArrays
 from benchkit.registry import register
 from benchkit.windows import sliding_windows
 from detectors._features import derived_seed, subsample_rows
@@ -35,7 +36,7 @@ def nearest_centroid_distance(windows: np.ndarray, centroids: np.ndarray) -> np.
 
 
 @register
-class ShapeClusters(Detector):
+class ShapeClusters(SavesArrays, Detector):
     """Nearest-centroid distance of the causal window, centroids from k-means on train windows."""
 
     name = "shape-clusters"
@@ -48,6 +49,7 @@ class ShapeClusters(Detector):
         Param("max_iter", int, 20, "k-means iterations", low=1),
         Param("seed", int, 0, "seed of the subsample and of the k-means initialisation", low=0),
     )
+    fitted_state = ("n_channels_", "centroids_")
 
     def fit(self, train: np.ndarray) -> ShapeClusters:
         train = check_series(train, "train")

@@ -15,6 +15,7 @@ import pytest
 
 from benchkit.cli import main
 from benchkit.detector import WARMUP_SCORE, Detector, Param, check_series
+from benchkit.persist import SavesArrays
 from benchkit.testing import (
     CHECK_NAMES,
     FAILED,
@@ -27,7 +28,7 @@ from benchkit.testing import (
 from benchkit.windows import sliding_windows
 
 
-class MovingMean(Detector):
+class MovingMean(SavesArrays, Detector):
     """Correct reference: distance of each point to the mean of its causal window."""
 
     name = "test-moving-mean"
@@ -37,6 +38,7 @@ class MovingMean(Detector):
         Param("gain", float, 1.0, "score multiplier", low=0.0),
         Param("seed", int, 0, "seed of a tiny jitter", low=0),
     )
+    fitted_state = ("n_channels_", "spread_", "jitter_")
 
     def fit(self, train):
         train = check_series(train, "train")
@@ -151,6 +153,19 @@ class NaNTypeError(MovingMean):
         return super().score(series)
 
 
+class LosesJitterOnLoad(MovingMean):
+    @classmethod
+    def load(cls, path):
+        det = super().load(path)
+        det.jitter_ = 0.0  # a fitted attribute not restored
+        return det
+
+
+class NoPersistence(MovingMean):
+    save = None  # a plug-in without save/load: the check is skipped, not failed
+    load = None
+
+
 class PerStepLoop(MovingMean):
     def score(self, series):
         series = check_series(series, "series", self.n_channels_)
@@ -163,8 +178,10 @@ class PerStepLoop(MovingMean):
 
 # (broken class, the checks it must fail: exactly these, the rest pass)
 BROKEN = [
-    (BadMetadata, {"metadata"}),
-    (AltersParams, {"params-roundtrip"}),
+    # load validates the stored parameters, and this default fails its own declaration
+    (BadMetadata, {"metadata", "persistence"}),
+    # load rebuilds from the stored parameters, so the alteration also breaks the round trip
+    (AltersParams, {"params-roundtrip", "persistence"}),
     (FitReturnsNone, {"fit-returns-self"}),
     (Float32Scores, {"score-output", "single-channel", "constant-channel", "speed"}),
     (WarmupScoredZero, {"score-output", "single-channel", "constant-channel", "speed"}),
@@ -176,6 +193,7 @@ BROKEN = [
     (DividesByWindowStd, {"constant-channel"}),
     (FillsNaN, {"nan-refused"}),
     (NaNTypeError, {"nan-refused"}),
+    (LosesJitterOnLoad, {"persistence"}),
 ]
 
 
@@ -227,6 +245,14 @@ def test_quick_mode_skips_the_extra_fits_but_keeps_causality_and_determinism():
     assert run_checks(Unseeded, quick=True).status("determinism") == FAILED
 
 
+def test_a_detector_without_save_and_load_has_persistence_skipped_with_the_reason():
+    report = run_checks(NoPersistence)
+    assert report.status("persistence") == SKIPPED
+    detail = next(r.detail for r in report.results if r.name == "persistence")
+    assert "export-model" in detail and "save" in detail
+    assert report.passed
+
+
 def test_a_detector_that_cannot_be_built_fails_every_check():
     class Exploding(MovingMean):
         def __init__(self, **params):
@@ -246,7 +272,7 @@ def test_the_kit_is_fast_on_the_reference():
 def test_cli_check_detector_prints_table_and_exit_status(capsys):
     assert main(["check-detector", "test_contract:MovingMean"]) == 0
     out = capsys.readouterr().out
-    assert "causality" in out and "12 passed, 0 failed, 0 skipped" in out
+    assert "causality" in out and "13 passed, 0 failed, 0 skipped" in out
     assert main(["check-detector", "test_contract:NonCausal", "--quick"]) == 1
     out = capsys.readouterr().out
     assert "failed" in out and "4 skipped" in out

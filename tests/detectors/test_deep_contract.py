@@ -56,6 +56,7 @@ def test_passes_the_contract_kit(name: str, extra: dict) -> None:
     report = check_detector(tiny(name, **extra), quick=bool(extra))
     assert report.passed
     assert report.status("causality") == "passed"
+    assert report.status("persistence") == "passed"  # state dict, weights_only=True load
 
 
 def test_contract_kit_passes_each_ablation() -> None:
