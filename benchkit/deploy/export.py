@@ -117,7 +117,7 @@ def _entity(spec: ExperimentSpec, cell: dict[str, Any], data_root: str | None):
 
 def _refit(spec: ExperimentSpec, cell: dict[str, Any], entity: Entity, model_path: Path):
     """Refit the cell in a fresh worker process of the local pool; return its result."""
-    from benchkit.runner import run_local
+    from benchkit.local_pool import run_local
 
     params = json.loads(cell["params"])
     key = cell_key(cell["detector"], params, cell["entity_fingerprint"], entity.name,
