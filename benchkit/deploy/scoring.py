@@ -21,9 +21,15 @@ from typing import Any
 import numpy as np
 
 from benchkit.deploy.bundle import Bundle
+from benchkit.errors import BenchkitInputError
 from benchkit.spot import StreamingPot
 
 UPDATES = ("fixed", "spot", "dspot")
+
+
+class NonFiniteScore(BenchkitInputError):
+    """The detector scored a row NaN or infinite; such a score is never written."""
+
 STREAM_PROBES = 16  # steps compared between the batch and the streaming path at export
 STREAM_TOLERANCE = 1e-5  # float32 rounding (torch); position-dependent scores differ by far more
 
@@ -44,7 +50,11 @@ def batch_scores(detector: Any, scaled_context: np.ndarray, scaled: np.ndarray) 
     warmup = scaled_context.shape[0]
     # C order, as the protocol's arrays: BLAS rounds a Fortran-ordered product differently
     series = np.vstack([scaled_context, scaled]) if warmup else np.ascontiguousarray(scaled)
-    return np.asarray(detector.score(series), dtype=np.float64)[warmup:]
+    scores = np.asarray(detector.score(series), dtype=np.float64)[warmup:]
+    bad = np.flatnonzero(~np.isfinite(scores))
+    if bad.size:
+        raise NonFiniteScore(f"the detector gave a non-finite score at step {bad[0]}")
+    return scores
 
 
 def window_score(detector: Any, window: np.ndarray) -> float:
@@ -126,6 +136,8 @@ class StreamScorer:
         """Score one raw row: ``(step, score, threshold, alert)``."""
         self.rows.append(self.bundle.scaler.transform(raw_row[None, :])[0])
         score = window_score(self.bundle.detector, np.asarray(self.rows))
+        if not np.isfinite(score):
+            raise NonFiniteScore(f"the detector gave a non-finite score at step {self.step}")
         if self.state is None:
             theta, alert = self.fixed, score >= self.fixed
         else:

@@ -242,3 +242,14 @@ def test_export_refuses_when_the_refit_does_not_reproduce_the_cache(tiny_run, tm
     assert code == 2 and not target.exists()
     assert "test_scores differ from the cached ones (first at step 5" in err
     assert not list(tmp_path.glob(".b.partial-*"))
+
+
+@pytest.mark.parametrize("follow", [False, True])
+def test_a_non_finite_score_is_never_written(follow, bundles, tmp_path, capsys):
+    # a finite row far outside the training range: PCA's squared residual overflows to inf
+    data = tmp_path / "huge.txt"
+    data.write_text("1,2,3,4\n1e200,1e200,-1e200,1e200\n")
+    code, out, err = _apply(capsys, bundles["pca-residual"], data,
+                            *(["--follow"] if follow else []))  # fmt: skip
+    assert code == 2 and "non-finite score at step 1" in err
+    assert "inf" not in out and "nan" not in out
