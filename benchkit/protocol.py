@@ -9,8 +9,9 @@ The steps, in order (:func:`run_cell`):
    real score from ``warmup`` steps of context; the context scores are dropped (timed:
    ``score_seconds`` and ``points_per_second`` for the test part);
 5. check the scores (1-D, numeric, right length, finite after warm-up); bad output fails the cell;
-6. :func:`evaluate`: thresholds (oracle on the test labels; POT and a quantile calibrated on the
-   train scores after their warm-up) and the metric set for each, plus threshold-free metrics.
+6. :func:`evaluate`: thresholds (oracle on the test labels; POT, a quantile and an alert budget
+   calibrated on the train scores after their warm-up) and the metric set with the alert metrics
+   for each, plus threshold-free metrics.
 
 Peak memory (``peak_memory_mb``) is the high-water mark of the worker's resident set size during
 the cell minus its size when the cell began, so it covers numpy and torch allocations alike. On
@@ -33,9 +34,15 @@ import numpy as np
 from benchkit import metrics as _metrics
 from benchkit import registry
 from benchkit.data.model import Entity
+from benchkit.metrics.alerts import best_recall_within, duration
 from benchkit.noise import Perturbation, apply_perturbation
 from benchkit.spec import ThresholdSpec, metric_options
-from benchkit.thresholds import calibration_scores, pot_threshold, quantile_threshold
+from benchkit.thresholds import (
+    alert_budget_threshold,
+    calibration_scores,
+    pot_threshold,
+    quantile_threshold,
+)
 from benchkit.windows import Scaler
 
 PROTOCOL_VERSION = 1
@@ -166,15 +173,18 @@ def evaluate(
     labels: np.ndarray,
     warmup: int,
     evaluation: Evaluation,
+    step_seconds: float | None = None,
 ) -> tuple[dict[tuple[str, str], float], dict[str, float]]:
     """Metrics of one cell's scores.
 
     Returns
     -------
-    metrics : ``(threshold, metric) -> value``, threshold in ``oracle``, ``pot``, ``quantile``
-        (as configured) and ``none`` for ``roc_auc``, ``pr_auc``, ``random_pa_f1``.
+    metrics : ``(threshold, metric) -> value``, threshold in ``oracle``, ``pot``, ``quantile``,
+        ``alert-budget`` and its label-peeking twin ``alert-budget-oracle`` (as configured) and
+        ``none`` for ``roc_auc``, ``pr_auc``, ``random_pa_f1``. Every thresholded strategy
+        carries the metric set and the alert metrics (``false_alerts_per_day``, ...).
     thresholds : the thresholds used (``threshold_oracle_f1``, ``threshold_pot``,
-        ``threshold_quantile``, ...) and POT fit details (``pot_*``).
+        ``threshold_quantile``, ``threshold_alert_budget``, ...) and POT fit details (``pot_*``).
     """
     options = evaluation.options()
     cfg = evaluation.thresholds
@@ -182,10 +192,18 @@ def evaluate(
     out: dict[tuple[str, str], float] = {}
     used: dict[str, float] = {}
     calib = calibration_scores(train_scores, warmup)
+
+    def record(strategy: str, theta: float, full: bool = True) -> None:
+        pred = test_scores >= theta
+        values = _metrics.metric_set(pred, labels, options) if full else {}
+        values.update(_metrics.alert_metrics(pred, labels, cfg.merge_gap, step_seconds))
+        out.update({(strategy, m): float(v) for m, v in values.items()})
+
     if "oracle" in cfg.strategies:
         values, oracle_thresholds = _metrics.oracle_metric_set(test_scores, labels, options)
         out.update({("oracle", m): float(v) for m, v in values.items()})
         used.update({f"threshold_oracle_{m}": float(v) for m, v in oracle_thresholds.items()})
+        record("oracle", oracle_thresholds["f1"], full=False)
     if "pot" in cfg.strategies:
         pot = pot_threshold(calib, cfg.pot_risk, cfg.pot_initial_quantile)
         used.update(
@@ -196,25 +214,46 @@ def evaluate(
             pot_excesses=float(pot.n_excesses),
             pot_fallback=float(pot.method != "gpd"),
         )
-        values = _metrics.metric_set(test_scores >= pot.threshold, labels, options)
-        out.update({("pot", m): float(v) for m, v in values.items()})
+        record("pot", pot.threshold)
     if "quantile" in cfg.strategies:
         theta = quantile_threshold(calib, cfg.quantile_level)
         used["threshold_quantile"] = theta
-        values = _metrics.metric_set(test_scores >= theta, labels, options)
-        out.update({("quantile", m): float(v) for m, v in values.items()})
+        record("quantile", theta)
+    if "alert-budget" in cfg.strategies:
+        budget = alert_budget_threshold(
+            calib, cfg.alert_budget, cfg.merge_gap, step_seconds, cfg.alert_budget_per
+        )
+        used["threshold_alert_budget"] = budget.threshold
+        used["alert_budget_train_false_alerts"] = float(budget.train_false_alerts)
+        record("alert-budget", budget.threshold)
+        # Its oracle twin peeks at the test labels: best event recall within the same budget.
+        curve = _metrics.alert_curve(test_scores, labels, cfg.merge_gap)
+        allowed = cfg.alert_budget * duration(len(labels), step_seconds, cfg.alert_budget_per)
+        theta = best_recall_within(curve, allowed)
+        used["threshold_alert_budget_oracle"] = theta
+        record("alert-budget-oracle", theta)
     out[(THRESHOLD_FREE, "roc_auc")] = float(_metrics.roc_auc(test_scores, labels))
     out[(THRESHOLD_FREE, "pr_auc")] = float(_metrics.pr_auc(test_scores, labels))
     out[(THRESHOLD_FREE, "random_pa_f1")] = float(_metrics.random_pa_f1(labels))
     return out, used
 
 
+def _cached_step(cached: dict[str, Any]) -> float | None:
+    """The step length saved with cached scores (older caches have none)."""
+    step = cached.get("step_seconds")
+    if step is None or not np.isfinite(float(step)):
+        return None
+    return float(step)
+
+
 def run_cell(task: CellTask) -> CellResult:
     """Compute one cell (steps 1-6 of the module docstring); errors propagate to the caller."""
     if task.cached_scores is not None:
         s = task.cached_scores
+        step = task.entity.step_seconds if task.entity is not None else _cached_step(s)
         metrics, used = evaluate(
-            s["test_scores"], s["train_scores"], s["labels"], int(s["warmup"]), task.evaluation
+            s["test_scores"], s["train_scores"], s["labels"], int(s["warmup"]), task.evaluation,
+            step,
         )
         return CellResult(
             task.key,
@@ -246,7 +285,9 @@ def run_cell(task: CellTask) -> CellResult:
     score_seconds = time.perf_counter() - t0
     test_scores = check_scores(raw, warmup + test.shape[0], warmup, "test")[warmup:]
     labels = np.asarray(entity.labels, dtype=np.int8)
-    metrics, used = evaluate(test_scores, train_scores, labels, warmup, task.evaluation)
+    metrics, used = evaluate(
+        test_scores, train_scores, labels, warmup, task.evaluation, entity.step_seconds
+    )
     if task.save_to is not None:
         detector.save(task.save_to)
     scores = {
@@ -254,6 +295,7 @@ def run_cell(task: CellTask) -> CellResult:
         "train_scores": train_scores,
         "labels": labels,
         "warmup": np.array(warmup),
+        "step_seconds": np.array(np.nan if entity.step_seconds is None else entity.step_seconds),
     }
     return CellResult(
         task.key,

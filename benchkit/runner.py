@@ -125,8 +125,23 @@ def load_datasets(spec: ExperimentSpec, data_root: str | Path | None = None) -> 
                 f"datasets[{names[dataset.name]}]; set a distinct name"
             )
         names[dataset.name] = i
+        _check_step_for_budget(spec, dataset, i)
         out.append(dataset)
     return out
+
+
+def _check_step_for_budget(spec: ExperimentSpec, dataset: Dataset, index: int) -> None:
+    """An alert budget per day needs every entity's step length; say which one lacks it."""
+    cfg = spec.thresholds
+    if "alert-budget" not in cfg.strategies or cfg.alert_budget_per != "day":
+        return
+    for entity in dataset.entities:
+        if entity.step_seconds is None:
+            raise SpecError(
+                f"thresholds.alert_budget: a budget per day needs the step length, but "
+                f"datasets[{index}] entity {entity.name!r} has none; give the data a step "
+                'or set thresholds.alert_budget_per = "1000-steps"'
+            )
 
 
 def expand_grid(spec: ExperimentSpec, datasets: list[Dataset]) -> list[PlannedCell]:

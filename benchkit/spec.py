@@ -14,10 +14,13 @@ Layout (every key is checked; unknown keys are errors)::
     cell_time_limit = 600.0           # seconds per cell; a slower cell is marked "timeout"
 
     [thresholds]
-    strategies = ["oracle", "pot", "quantile"]
+    strategies = ["oracle", "pot", "quantile"]   # and/or "alert-budget"
     pot_risk = 0.001                  # q of Siffer et al. (2017)
     pot_initial_quantile = 0.98       # level of the initial threshold t
     quantile_level = 0.99             # the "quantile" strategy: this quantile of train scores
+    alert_budget = 1.0                # "alert-budget": false alerts allowed on train, per ...
+    alert_budget_per = "day"          # ... day (needs the data's step) or "1000-steps"
+    merge_gap = 0                     # alerts at most this many unpredicted steps apart merge
 
     [metrics]                         # fields of benchkit.metrics.MetricOptions
     ...
@@ -61,7 +64,9 @@ from benchkit.noise import CLEAN, Perturbation, parse_sweeps
 
 SCALINGS = ("zscore", "minmax", "none")
 EXECUTORS = ("local", "dask")
-STRATEGIES = ("oracle", "pot", "quantile")
+STRATEGIES = ("oracle", "pot", "quantile", "alert-budget")
+DEFAULT_STRATEGIES = ("oracle", "pot", "quantile")
+BUDGET_UNITS = ("day", "1000-steps")
 DEFAULT_SPEC_RESOURCE = "specs/default.toml"
 
 _TOP_KEYS = (
@@ -135,12 +140,16 @@ class DetectorSpec:
 
 @dataclass(frozen=True)
 class ThresholdSpec:
-    """``[thresholds]``: which strategies, and the POT and quantile settings."""
+    """``[thresholds]``: which strategies, the POT and quantile settings, and the alert budget
+    (false alerts per day, or per 1,000 steps) with the gap that merges alerts."""
 
-    strategies: tuple[str, ...] = STRATEGIES
+    strategies: tuple[str, ...] = DEFAULT_STRATEGIES
     pot_risk: float = 1e-3
     pot_initial_quantile: float = 0.98
     quantile_level: float = 0.99
+    alert_budget: float = 1.0
+    alert_budget_per: str = "day"
+    merge_gap: int = 0
 
     def to_dict(self) -> dict[str, Any]:
         return {
@@ -148,6 +157,9 @@ class ThresholdSpec:
             "pot_risk": self.pot_risk,
             "pot_initial_quantile": self.pot_initial_quantile,
             "quantile_level": self.quantile_level,
+            "alert_budget": self.alert_budget,
+            "alert_budget_per": self.alert_budget_per,
+            "merge_gap": self.merge_gap,
         }
 
 
@@ -314,7 +326,10 @@ def _execution(t: dict) -> ExecutionSpec:
 
 def _thresholds(t: dict) -> ThresholdSpec:
     _no_unknown(
-        t, ("strategies", "pot_risk", "pot_initial_quantile", "quantile_level"), "thresholds"
+        t,
+        ("strategies", "pot_risk", "pot_initial_quantile", "quantile_level", "alert_budget",
+         "alert_budget_per", "merge_gap"),
+        "thresholds",
     )
     d = ThresholdSpec()
     raw = t.get("strategies", list(d.strategies))
@@ -338,7 +353,13 @@ def _thresholds(t: dict) -> ThresholdSpec:
             f"= {1.0 - initial:g}, got {show(risk)}"
         )
     level = _unit(t.get("quantile_level", d.quantile_level), "thresholds.quantile_level")
-    return ThresholdSpec(strategies, risk, initial, level)
+    budget = _number(t.get("alert_budget", d.alert_budget), "thresholds.alert_budget")
+    if budget < 0:
+        raise SpecError(f"thresholds.alert_budget: expected a number >= 0, got {show(budget)}")
+    per = _choice(t.get("alert_budget_per", d.alert_budget_per), BUDGET_UNITS,
+                  "thresholds.alert_budget_per")
+    gap = _integer(t.get("merge_gap", d.merge_gap), "thresholds.merge_gap", low=0)
+    return ThresholdSpec(strategies, risk, initial, level, budget, per, gap)
 
 
 def _metrics(t: dict) -> dict[str, Any]:

@@ -1,4 +1,5 @@
-"""Threshold strategies that need no test labels: POT (peaks over threshold) and a train quantile.
+"""Threshold strategies that need no test labels: POT (peaks over threshold), a train quantile and
+an alert budget (false alerts per day on train).
 
 The oracle strategy (best F1 on the test labels) lives in :mod:`benchkit.metrics`
 (``oracle_metric_set``); this module only calibrates on train scores.
@@ -22,6 +23,8 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy.optimize import minimize_scalar
+
+from benchkit.metrics import alerts
 
 MIN_EXCESSES = 10
 """Fewer excesses make a GPD fit meaningless; POT then falls back (see :func:`pot_threshold`)."""
@@ -170,3 +173,45 @@ def pot_threshold(
             return PotResult(z, t, gamma, sigma, n_exc, int(s.size), "gpd")
     z = float(np.quantile(s, 1.0 - risk))
     return PotResult(z, t, float("nan"), float("nan"), n_exc, int(s.size), "empirical")
+
+
+@dataclass(frozen=True)
+class AlertBudgetResult:
+    """An alert-budget threshold and what it gives on the calibration scores."""
+
+    threshold: float
+    train_false_alerts: int
+    train_duration: float
+
+
+def alert_budget_threshold(
+    scores: np.ndarray,
+    budget: float,
+    merge_gap: int = 0,
+    step_seconds: float | None = None,
+    per: str = "day",
+) -> AlertBudgetResult:
+    """The lowest threshold whose false alerts on the calibration ``scores`` stay within budget.
+
+    The calibration scores (train, after warm-up) count as normal operation, so every alert on
+    them is false. Walking down from the highest score, the threshold is the last one before the
+    false alerts first exceed ``budget`` per day (``per="day"``, needs ``step_seconds``) or per
+    1,000 steps (``per="1000-steps"``): lowering a threshold can merge alerts, so the count is
+    not monotone and the walk stops at the first excess. When even the highest score exceeds
+    the budget, the threshold lies just above it (nothing predicted on train).
+
+    Common practice, no source: an operator sizes alerting by the pages per day they can take.
+    """
+    s = np.asarray(scores, dtype=np.float64)
+    if s.size == 0:
+        raise ValueError("no finite calibration scores for the alert budget")
+    length = alerts.duration(len(s), step_seconds, per)
+    if not np.isfinite(length):
+        raise ValueError("an alert budget per day needs the step length of the data")
+    curve = alerts.alert_curve(s, np.zeros(len(s), dtype=np.int8), merge_gap)
+    at = alerts.highest_within(curve.false_alerts, budget * length)
+    if at < 0:
+        return AlertBudgetResult(float(np.nextafter(curve.thresholds[0], np.inf)), 0, length)
+    return AlertBudgetResult(
+        float(curve.thresholds[at]), int(curve.false_alerts[at]), length
+    )

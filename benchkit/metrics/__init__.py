@@ -12,7 +12,13 @@ Conventions
 """
 
 from benchkit.metrics.adjust import delay_adjust, pa_k_adjust, pa_k_f1_auc, point_adjust
-from benchkit.metrics.alerts import AlertCurve, alert_curve, count_alerts
+from benchkit.metrics.alerts import (
+    ALERT_METRICS,
+    AlertCurve,
+    alert_curve,
+    alert_metrics,
+    count_alerts,
+)
 from benchkit.metrics.best import BestF1, F1Curve, best_f1, f1_curve
 from benchkit.metrics.event_level import composite_f1, detection_delays, event_recall
 from benchkit.metrics.events import events_to_labels, labels_to_events
@@ -25,12 +31,14 @@ from benchkit.metrics.reference import random_pa_f1
 from benchkit.metrics.threshold_free import pr_auc, roc_auc
 
 __all__ = [
+    "ALERT_METRICS",
     "AlertCurve",
     "BestF1",
     "F1Curve",
     "MetricInputError",
     "MetricOptions",
     "alert_curve",
+    "alert_metrics",
     "best_f1",
     "best_range_f1",
     "composite_f1",

@@ -27,6 +27,7 @@ from typing import NamedTuple
 
 import numpy as np
 
+from benchkit.metrics.event_level import delays_of
 from benchkit.metrics.events import runs_of, segment_sums
 from benchkit.metrics.inputs import MetricInputError, binary_pair, scores_and_labels
 
@@ -258,3 +259,105 @@ def alert_curve(scores: object, labels: object, merge_gap: int = 0) -> AlertCurv
     detected = np.minimum.reduceat(level, _bounds(events[:, 0], events[:, 1] + 1, len(level)))[::2]
     recall = np.cumsum(np.bincount(detected, minlength=top + 1)[:top]) / len(events)
     return AlertCurve(thresholds, recall, np.cumsum(change[:top]))
+
+
+# ------------------------------------------------------------------ what the operator sees
+
+ALERT_METRICS = (
+    "true_alerts",
+    "false_alerts",
+    "false_alerts_per_day",
+    "false_alerts_per_1k_steps",
+    "ttd_median_steps",
+    "ttd_p90_steps",
+    "ttd_median_minutes",
+    "ttd_p90_minutes",
+    "alerts_per_detected_event",
+)
+"""Keys of :func:`alert_metrics`, in report order."""
+
+
+def duration(n_steps: int, step_seconds: float | None, per: str = "day") -> float:
+    """Length of ``n_steps`` steps in days (``per="day"``, needs ``step_seconds``; NaN without
+    it) or in thousands of steps (``per="1000-steps"``)."""
+    if per == "1000-steps":
+        return n_steps / STEPS_PER_RATE
+    if step_seconds is None or not np.isfinite(step_seconds):
+        return float("nan")
+    return n_steps * float(step_seconds) / SECONDS_PER_DAY
+
+
+def _per_event_alerts(spans: np.ndarray, events: np.ndarray) -> np.ndarray:
+    """Number of alert spans overlapping each event."""
+    if len(spans) == 0:
+        return np.zeros(len(events), dtype=np.int64)
+    after_start = np.searchsorted(spans[:, 1], events[:, 0], side="left")
+    before_end = np.searchsorted(spans[:, 0], events[:, 1], side="right")
+    return before_end - after_start
+
+
+def alert_metrics(
+    pred: object, labels: object, merge_gap: int = 0, step_seconds: float | None = None
+) -> dict[str, float]:
+    """The operator's numbers for one 0/1 prediction (keys in :data:`ALERT_METRICS`).
+
+    Parameters
+    ----------
+    pred, labels : 1-D 0/1 arrays of the same length (the test part).
+    merge_gap : as in :func:`count_alerts`.
+    step_seconds : length of one step; without it the per-day rate and the times in minutes
+        are NaN and ``false_alerts_per_1k_steps`` is the rate to read.
+
+    Returns
+    -------
+    true and false alert counts; false alerts per day and per 1,000 steps; median and 90th
+    percentile (linear interpolation) of the time to detect over detected events (first
+    predicted step minus the event's first step), in steps and minutes, NaN when nothing is
+    detected; alerts per detected event (alerts overlapping each event that at least one alert
+    overlaps, averaged: above 1 means fragmented alerting).
+    """
+    p, y = binary_pair(pred, labels)
+    gap = check_merge_gap(merge_gap)
+    spans = alert_spans(p, gap)
+    events = runs_of(y)
+    true = int(np.count_nonzero(_span_hits(spans, y)))
+    false = len(spans) - true
+    delays = delays_of(p, events).astype(np.float64)
+    if len(delays):
+        median, p90 = float(np.median(delays)), float(np.percentile(delays, 90))
+    else:
+        median = p90 = float("nan")
+    minutes = float(step_seconds) / 60.0 if step_seconds is not None else float("nan")
+    touching = _per_event_alerts(spans, events)
+    touched = int(np.count_nonzero(touching))
+    days = duration(len(y), step_seconds)
+    return {
+        "true_alerts": float(true),
+        "false_alerts": float(false),
+        "false_alerts_per_day": false / days if days > 0 else float("nan"),
+        "false_alerts_per_1k_steps": false / duration(len(y), None, "1000-steps")
+        if len(y) else float("nan"),
+        "ttd_median_steps": median,
+        "ttd_p90_steps": p90,
+        "ttd_median_minutes": median * minutes,
+        "ttd_p90_minutes": p90 * minutes,
+        "alerts_per_detected_event": float(touching.sum() / touched) if touched else float("nan"),
+    }
+
+
+def highest_within(false_alerts: np.ndarray, allowed: float) -> int:
+    """Index of the lowest threshold (thresholds descending) such that it and every higher
+    threshold give at most ``allowed`` false alerts; -1 when even the highest gives more."""
+    over = np.flatnonzero(false_alerts > allowed)
+    return len(false_alerts) - 1 if len(over) == 0 else int(over[0]) - 1
+
+
+def best_recall_within(curve: AlertCurve, allowed: float) -> float:
+    """The threshold of highest event recall among those with at most ``allowed`` false alerts
+    (ties: the highest threshold); just above the highest score when none qualifies."""
+    ok = np.flatnonzero(curve.false_alerts <= allowed)
+    if len(ok) == 0:
+        return float(np.nextafter(curve.thresholds[0], np.inf)) if len(curve.thresholds) else (
+            float("inf")
+        )
+    return float(curve.thresholds[ok[int(np.argmax(curve.event_recall[ok]))]])

@@ -52,7 +52,7 @@ def test_default_spec_names_every_built_in_detector_and_round_trips():
         "factorized-vae",
     }
     assert {d.name for d in spec.detectors} == documented
-    assert set(spec.thresholds.strategies) == {"oracle", "pot", "quantile"}
+    assert set(spec.thresholds.strategies) == {"oracle", "pot", "quantile", "alert-budget"}
     assert spec.seeds == (0,)
     assert [p.key() for p in spec.perturbations] == [
         "none",
@@ -144,7 +144,8 @@ def test_metric_options_reach_metric_options():
         ({"thresholds": {"pot_risk": 0.05}}, "thresholds.pot_risk: expected a number below"),
         (
             {"thresholds": {"strategies": ["oracle", "best"]}},
-            'thresholds.strategies[1]: expected one of oracle, pot, quantile, got "best"',
+            "thresholds.strategies[1]: expected one of oracle, pot, quantile, alert-budget, "
+            'got "best"',
         ),
         (
             {"thresholds": {"quantile_level": 1.5}},
