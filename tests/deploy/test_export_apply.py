@@ -253,3 +253,30 @@ def test_a_non_finite_score_is_never_written(follow, bundles, tmp_path, capsys):
                             *(["--follow"] if follow else []))  # fmt: skip
     assert code == 2 and "non-finite score at step 1" in err
     assert "inf" not in out and "nan" not in out
+
+
+def test_follow_answers_each_row_as_it_arrives(bundles, test_part):
+    # a real pipe: write one row, read its output line before writing the next
+    import subprocess
+    import sys
+    import threading
+
+    rows = test_part.read_text().splitlines()[:3]
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "benchkit.cli", "apply", str(bundles["pca-residual"]), "-",
+         "--follow"],
+        stdin=subprocess.PIPE, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+    )  # fmt: skip
+    watchdog = threading.Timer(60.0, proc.kill)  # a stuck pipe fails the test, never hangs it
+    watchdog.start()
+    try:
+        assert proc.stdout.readline().startswith("step,score,threshold,alert")
+        for i, row in enumerate(rows):
+            proc.stdin.write(row + "\n")
+            proc.stdin.flush()
+            assert proc.stdout.readline().startswith(f"{i},")
+        proc.stdin.close()
+        assert proc.wait(timeout=60) == 0
+    finally:
+        watchdog.cancel()
+        proc.kill()
