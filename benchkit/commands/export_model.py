@@ -1,5 +1,6 @@
-"""``benchkit export-model OUT --variant LABEL --entity NAME [--threshold pot|quantile]
---to BUNDLE``: refit one measured cell and write it, with its threshold, as a bundle folder.
+"""``benchkit export-model OUT --variant LABEL --entity NAME
+[--threshold pot|quantile|alert-budget] --to BUNDLE``: refit one measured cell and write it,
+with its threshold, as a bundle folder.
 
 See :mod:`benchkit.deploy.export` for the checks made before anything is written.
 """

@@ -43,10 +43,15 @@ from benchkit.persist import has_persistence
 from benchkit.protocol import CellTask, Evaluation, canonical_json, cell_key
 from benchkit.spec import ExperimentSpec, parse_spec
 from benchkit.store import Store
-from benchkit.thresholds import calibration_scores, pot_threshold, quantile_threshold
+from benchkit.thresholds import (
+    alert_budget_threshold,
+    calibration_scores,
+    pot_threshold,
+    quantile_threshold,
+)
 from benchkit.windows import Scaler
 
-THRESHOLDS = ("pot", "quantile")
+THRESHOLDS = ("pot", "quantile", "alert-budget")
 
 
 class NotReproduced(BenchkitInputError):
@@ -134,7 +139,8 @@ def _refit(spec: ExperimentSpec, cell: dict[str, Any], entity: Entity, model_pat
     return result
 
 
-def _threshold(strategy: str, spec: ExperimentSpec, cached: dict[str, Any]) -> dict[str, Any]:
+def _threshold(strategy: str, spec: ExperimentSpec, cached: dict[str, Any],
+               step_seconds: float | None) -> dict[str, Any]:  # fmt: skip
     cfg = spec.thresholds
     if strategy not in cfg.strategies:
         raise SpecError(
@@ -156,10 +162,17 @@ def _threshold(strategy: str, spec: ExperimentSpec, cached: dict[str, Any]) -> d
                       method=pot.method,
                       gamma=pot.gamma if pot.method == "gpd" else None,
                       sigma=pot.sigma if pot.method == "gpd" else None)  # fmt: skip
-    else:
+    elif strategy == "quantile":
         value = quantile_threshold(calib, cfg.quantile_level)
         detail["quantile_level"] = cfg.quantile_level
-    recorded = cached.get(f"threshold_{strategy}")
+    else:
+        budget = alert_budget_threshold(calib, cfg.alert_budget, cfg.merge_gap, step_seconds,
+                                        cfg.alert_budget_per)  # fmt: skip
+        value = budget.threshold
+        detail.update(alert_budget=cfg.alert_budget, alert_budget_per=cfg.alert_budget_per,
+                      merge_gap=cfg.merge_gap, step_seconds=step_seconds,
+                      train_false_alerts=budget.train_false_alerts)  # fmt: skip
+    recorded = cached.get(f"threshold_{strategy.replace('-', '_')}")
     if recorded is None or float(recorded) != value:
         raise NotReproduced(
             f"the {strategy} threshold recomputed from the cached train scores ({value!r}) is "
@@ -265,8 +278,8 @@ def export_model(
             f"--variant {variant}: detector {cell['detector']!r} has no save(path)/load(path), "
             "so export-model cannot bundle it (see DEVELOPERS.md, persistence)"
         )
-    chosen = _threshold(threshold, spec, cached)
     data, ent = _entity(spec, cell, data_root)
+    chosen = _threshold(threshold, spec, cached, ent.step_seconds)
     pin_numerics()
     staging = Path(tempfile.mkdtemp(prefix=f".{target.name}.partial-", dir=target.parent))
     try:

@@ -24,7 +24,7 @@ def tiny_run(tmp_path_factory) -> Path:
         "name": "deploy-tests",
         "seeds": [0],
         "execution": {"workers": 1},
-        "thresholds": {"strategies": ["oracle", "pot", "quantile"]},
+        "thresholds": {"strategies": ["oracle", "pot", "quantile", "alert-budget"]},
         "datasets": [{"source": "demo", "options": DEMO}],
         "detectors": [
             {"name": "pca-residual"},

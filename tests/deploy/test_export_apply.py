@@ -73,19 +73,22 @@ def test_manifest_records_provenance_and_no_file_is_a_pickle(tiny_run, bundles):
                 assert all(z[k].dtype != object for k in z.files)
 
 
-def test_quantile_threshold_bundle_carries_the_runs_quantile(tiny_run, tmp_path, test_part,
-                                                             capsys):  # fmt: skip
+@pytest.mark.parametrize("strategy", ["quantile", "alert-budget"])
+def test_other_threshold_bundles_carry_the_runs_threshold(strategy, tiny_run, tmp_path, test_part,
+                                                          capsys):  # fmt: skip
     cached = _cached(tiny_run, "pca-residual")
+    recorded = cached[f"threshold_{strategy.replace('-', '_')}"]
     target = tmp_path / "q"
     assert main(["export-model", str(tiny_run), "--variant", "pca-residual", "--entity", ENTITY,
-                 "--threshold", "quantile", "--to", str(target), "--quiet"]) == 0  # fmt: skip
+                 "--threshold", strategy, "--to", str(target), "--quiet"]) == 0  # fmt: skip
     code, out, _ = _apply(capsys, target, test_part, "--format", "jsonl")
     assert code == 0
     records = [json.loads(line) for line in out.splitlines()]
-    assert {r["threshold"] for r in records} == {cached["threshold_quantile"]}
-    assert sum(r["alert"] for r in records) == int(
-        np.count_nonzero(cached["test_scores"] >= cached["threshold_quantile"])
-    )
+    assert {r["threshold"] for r in records} == {recorded}
+    assert sum(r["alert"] for r in records) == int(np.count_nonzero(cached["test_scores"]
+                                                                    >= recorded))  # fmt: skip
+    manifest = json.loads((target / MANIFEST).read_text())
+    assert manifest["threshold"]["strategy"] == strategy
 
 
 @pytest.mark.parametrize(
@@ -202,6 +205,7 @@ def test_export_refuses_a_plugin_without_save_and_load(tiny_run, tmp_path, capsy
         (["--entity", "nope"], "--entity 'nope': no clean cell of 'pca-residual'"),
         (["--seed", "7"], "--seed 7: no cell"),
         (["--threshold", "oracle"], "invalid choice"),
+        (["--threshold", "alert-budget-oracle"], "invalid choice"),
     ],
 )
 def test_export_bad_arguments(args, message, tiny_run, tmp_path, capsys):
