@@ -9,7 +9,7 @@ from __future__ import annotations
 from collections.abc import Iterable, Iterator
 from typing import Any
 
-from benchkit.errors import BenchkitInputError
+from benchkit.errors import SpecError
 from benchkit.protocol import CellResult, CellTask
 from benchkit.worker import describe_error, execute_task
 
@@ -29,7 +29,7 @@ class DaskSession:
             try:
                 self.client = Client(scheduler, timeout="10s")
             except (OSError, TimeoutError, ValueError) as exc:  # ValueError: malformed address
-                raise BenchkitInputError(
+                raise SpecError(
                     f"--scheduler {scheduler}: cannot connect: {exc}"
                 ) from None
 

@@ -20,7 +20,7 @@ from benchkit.report.build import check_choices, chosen_threshold
 from benchkit.report.tables import CLEAN, DEFAULT_COLUMNS, comparison_table
 from benchkit.runner import RunSummary
 from benchkit.spec import ExperimentSpec, default_spec, load_spec, parse_spec, parse_toml
-from benchkit.store import DB_NAME, Store
+from benchkit.store import Store
 
 if TYPE_CHECKING:
     import pandas as pd
@@ -101,11 +101,8 @@ def open_results(out: str | Path) -> Results:
     Raises DataError naming the folder when it holds no benchkit results.
     """
     folder = Path(out)
-    if not (folder / DB_NAME).is_file():
-        raise DataError(f"{folder}: no {DB_NAME} here (not a benchkit results folder)")
-    with Store(folder) as store:
-        if not store.run_ids():
-            raise DataError(f"{folder / DB_NAME}: holds no run")
+    with Store(folder) as store:  # DataError when there is no results store or no run
+        store.latest_run()
     return Results(folder)
 
 

@@ -30,7 +30,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from benchkit.errors import BenchkitInputError
+from benchkit.errors import DataError
 
 DB_NAME = "results.sqlite"
 SCORES_DIR = "scores"
@@ -186,7 +186,7 @@ class Store:
         if create:
             self.scores_dir.mkdir(parents=True, exist_ok=True)
         elif not self.db_path.is_file():
-            raise BenchkitInputError(
+            raise DataError(
                 f"{self.out}: no {DB_NAME} here (not a benchkit results folder)"
             )
         self._conn = sqlite3.connect(self.db_path, isolation_level=None, timeout=30.0)
@@ -331,7 +331,7 @@ class Store:
             return run_id
         ids = self.run_ids()
         if not ids:
-            raise BenchkitInputError(f"{self.db_path}: holds no run")
+            raise DataError(f"{self.db_path}: holds no run")
         return ids[-1]
 
     def latest_run(self) -> dict[str, Any]:
@@ -410,7 +410,7 @@ class Store:
         """
         path = self.score_path(cell_key)
         if not path.is_file():
-            raise BenchkitInputError(f"{path}: no cached scores for cell {cell_key}")
+            raise DataError(f"{path}: no cached scores for cell {cell_key}")
         with np.load(path) as z:
             out: dict[str, Any] = {k: z[k] for k in z.files}
         if "warmup" in out:
@@ -460,7 +460,7 @@ def writer_lock(out: Path | str):
         try:
             fcntl.flock(handle.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
         except BlockingIOError:
-            raise BenchkitInputError(
+            raise DataError(
                 f"{out}: another benchkit command is writing this results folder; "
                 "wait for it to finish or choose another --out"
             ) from None

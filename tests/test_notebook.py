@@ -14,7 +14,7 @@ import re
 import subprocess
 import sys
 import tomllib
-from importlib.metadata import distribution
+from importlib.metadata import PackageNotFoundError, distribution
 from pathlib import Path
 
 import numpy as np
@@ -26,6 +26,7 @@ import benchkit
 from benchkit.cli import main as cli_main
 from benchkit.data import load
 from benchkit.spec import dumps_toml
+from benchkit.store import writer_lock
 
 REPO = Path(__file__).resolve().parents[1]
 DEMO = {"n_entities": 2, "n_channels": 4, "n_train": 600, "n_test": 500,
@@ -189,6 +190,13 @@ def test_open_results_of_a_folder_without_results_raises(tmp_path):
         benchkit.open_results(tmp_path)
 
 
+def test_a_folder_another_command_is_writing_raises_data_error(tmp_path):
+    with writer_lock(tmp_path / "busy"), pytest.raises(
+        benchkit.DataError, match="another benchkit command is writing"
+    ):
+        benchkit.run(SPEC, out=tmp_path / "busy")
+
+
 def test_importing_benchkit_loads_no_heavy_library():
     code = ("import sys, benchkit; heavy = ('pandas', 'numpy', 'torch', 'sklearn', 'scipy'); "
             "print([m for m in heavy if m in sys.modules], 'open_results' in dir(benchkit))")
@@ -201,7 +209,10 @@ def test_importing_benchkit_loads_no_heavy_library():
 def test_the_distribution_has_our_own_name_and_the_usual_entry_points():
     project = tomllib.loads((REPO / "pyproject.toml").read_text(encoding="utf-8"))["project"]
     assert project["name"] == benchkit.DISTRIBUTION != "benchkit"
-    dist = distribution(benchkit.DISTRIBUTION)  # installed by scripts/setup under that name
+    try:  # installed by scripts/setup under that name
+        dist = distribution(benchkit.DISTRIBUTION)
+    except PackageNotFoundError:
+        pytest.fail(f"{benchkit.DISTRIBUTION} is not installed: run ./scripts/setup again")
     assert dist.version == benchkit.__version__
     scripts = {e.name: e.value for e in dist.entry_points if e.group == "console_scripts"}
     assert scripts == {"benchkit": "benchkit.cli:main"}
