@@ -13,8 +13,8 @@ from benchkit.errors import DataError, SpecError
 
 __version__ = "0.1.0"
 DISTRIBUTION = "benchkit-kpi"
-"""The name benchkit is published and installed under (``pip install benchkit-kpi``); the
-import package and the command are ``benchkit``."""
+"""The distribution name (``pip show benchkit-kpi``): the public index's ``benchkit`` is an
+unrelated project. The import package, the command and the entry-point group are ``benchkit``."""
 
 _LAZY = ("run", "open_results", "Results")
 __all__ = ["DISTRIBUTION", "DataError", "Results", "SpecError", "open_results", "run"]
