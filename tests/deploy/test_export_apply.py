@@ -112,11 +112,40 @@ def test_follow_on_a_piped_file_gives_the_batch_scores(variant, tolerance, bundl
     assert np.isfinite(b["score"]).all()
 
 
-def test_follow_with_spot_updates_like_the_batch_spot(bundles, test_part, capsys, monkeypatch):
-    _, batch, _ = _apply(capsys, bundles["isolation-forest"], test_part, "--update", "spot")
+@pytest.mark.parametrize("update", [["--update", "spot"], ["--update", "dspot", "--depth", "10"]])
+def test_follow_updates_the_threshold_like_the_batch_path(update, bundles, test_part, capsys,
+                                                          monkeypatch):  # fmt: skip
+    _, batch, _ = _apply(capsys, bundles["isolation-forest"], test_part, *update)
     monkeypatch.setattr("sys.stdin", io.StringIO(test_part.read_text()))
-    _, follow, _ = _apply(capsys, bundles["isolation-forest"], "-", "--follow")  # spot default
-    assert batch.splitlines()[1:] == follow.splitlines()[1:]
+    extra = [] if update[1] == "spot" else update  # SPOT is the default with --follow
+    _, follow, _ = _apply(capsys, bundles["isolation-forest"], "-", "--follow", *extra)
+    assert batch == follow
+    thresholds = pd.read_csv(io.StringIO(batch))["threshold"]
+    assert thresholds.nunique() > 1  # the threshold moved with the stream
+
+
+@pytest.mark.parametrize(
+    "args, message",
+    [
+        (["--update", "dspot"], "--update dspot: give the moving-average depth"),
+        (["--depth", "5"], "--depth: only used with --update dspot"),
+        (["--culprits", "-1"], "--culprits: expected an integer >= 0"),
+    ],
+)
+def test_apply_bad_arguments(args, message, bundles, test_part, capsys):
+    code, out, err = _apply(capsys, bundles["pca-residual"], test_part, *args)
+    assert code == 2 and out == "" and message in err and err.count("\n") == 1
+
+
+def test_apply_bad_bundle_and_data_paths(bundles, tmp_path, test_part, capsys):
+    code, _, err = _apply(capsys, tmp_path / "none", test_part)
+    assert code == 2 and "no such bundle folder" in err
+    code, _, err = _apply(capsys, tmp_path, test_part)
+    assert code == 2 and "not a bundle (no manifest.json)" in err
+    code, _, err = _apply(capsys, bundles["pca-residual"], tmp_path / "missing.txt")
+    assert code == 2 and "missing.txt: no such file" in err
+    code, _, err = _apply(capsys, bundles["pca-residual"], tmp_path / "t.parquet", "--follow")
+    assert code == 2 and "--follow: reads text rows" in err
 
 
 def test_follow_refuses_a_detector_whose_score_depends_on_position(bundles, test_part, capsys):
