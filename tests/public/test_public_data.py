@@ -185,3 +185,17 @@ def test_a_corrupted_line_exits_2_naming_the_file(public_data, tmp_path, capsys)
     assert main(["datasets", "show", str(root), "-o", "step=5min"]) == 2
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and f"{path}: line 2: KPI 'x'" in err[0]
+    # the public experiment on a root holding this copy (beside a tiny invented server-machine
+    # folder, to keep the test short) stops before any cell, naming the file
+    rng = np.random.default_rng(0)
+    for folder, values in (("train", rng.random((50, 38))), ("test", rng.random((50, 38)))):
+        (tmp_path / "server-machines" / folder).mkdir(parents=True)
+        np.savetxt(tmp_path / "server-machines" / folder / "m.txt", values, delimiter=",")
+    (tmp_path / "server-machines" / "test_label").mkdir()
+    (tmp_path / "server-machines" / "test_label" / "m.txt").write_text("0\n" * 50)
+    spec, out = DATASETS / "public-experiment.toml", tmp_path / "out"
+    argv = ["run", str(spec), "--data-root", str(tmp_path), "--out", str(out), "--quiet"]
+    assert main(argv) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "line 2: KPI 'x'" in err[0] and str(path.name) in err[0]
+    assert not (out / "scorecard.json").exists()
