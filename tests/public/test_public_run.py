@@ -53,7 +53,8 @@ def test_public_experiment_lists_every_builtin_on_both_datasets_without_entities
     assert {d["source"] for d in spec["datasets"]} == {"server-machines.toml", "app-servers.toml"}
     assert all("entities" not in d for d in spec["datasets"])
     assert {d["name"] for d in spec["detectors"]} == builtin_names()
-    assert spec["thresholds"]["strategies"] == ["oracle", "pot", "quantile"]
+    # issue: "with oracle, POT and quantile thresholds" (others may join them)
+    assert {"oracle", "pot", "quantile"} <= set(spec["thresholds"]["strategies"])
 
 
 def test_reduced_public_run_then_verify(public_data, tmp_path, capsys):
