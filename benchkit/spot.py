@@ -24,10 +24,10 @@ While the tail holds fewer than :data:`~benchkit.thresholds.MIN_EXCESSES` distin
 threshold is the empirical ``1 - q`` quantile of the calibration scores, as in batch POT, and it
 is not updated until enough peaks have arrived.
 
-The update is sequential by definition (each step's threshold depends on the alerts before it);
-:meth:`StreamingPot.run` walks a batch one step at a time with the same arithmetic as
-:meth:`StreamingPot.update`, so a batch and a stream of the same scores give the same thresholds
-bit for bit.
+The update is sequential by definition (each step's threshold depends on the alerts before it).
+:meth:`StreamingPot.run` computes SPOT's stretches between peaks at once and the peaks one by
+one, with the same arithmetic as :meth:`StreamingPot.update`, so a batch and a stream of the
+same scores give the same thresholds bit for bit (tested).
 """
 
 from __future__ import annotations
@@ -122,10 +122,26 @@ class StreamingPot:
         self._set_z()
 
     def _set_z(self) -> None:
+        """z_q after a refit (eq. 1, scalar: the same arithmetic as batch POT)."""
         z = math.nan
         if math.isfinite(self.gamma):
             z = spot_threshold(self.t, self.gamma, self.sigma, self.risk, self.k, self.n_excesses)
         self.z = z if math.isfinite(z) else self.fallback
+
+    def _z_after_normal_steps(self, ks: np.ndarray) -> np.ndarray:
+        """z_q for each count ``k`` in ``ks`` with the tail unchanged (eq. 1, elementwise).
+
+        Both :meth:`update` (one k) and :meth:`run` (a stretch of k) use this function, so a
+        batch and a stream give the same bits.
+        """
+        if not math.isfinite(self.gamma):
+            return np.full(ks.shape, self.fallback)
+        r = self.risk * ks.astype(np.float64) / self.n_excesses
+        if abs(self.gamma) < 1e-12:
+            z = self.t - self.sigma * np.log(r)
+        else:
+            z = self.t + (self.sigma / self.gamma) * (np.power(r, -self.gamma) - 1.0)
+        return np.where(np.isfinite(z), z, self.fallback)
 
     @property
     def threshold(self) -> float:
@@ -148,17 +164,50 @@ class StreamingPot:
             self.excesses.append(value - self.t)
             self._refit()
         elif math.isfinite(self.gamma):
-            self._set_z()
+            self.z = float(self._z_after_normal_steps(np.array([self.k]))[0])
         if self.depth:
             self.window.append(x)
         return SpotStep(threshold, False, peak)
 
     def run(self, scores: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """Stream a batch of raw scores; return the thresholds used and the alerts, per step."""
+        """Stream a batch of raw scores; return the thresholds used and the alerts, per step.
+
+        SPOT: the stretches between scores above ``t`` only raise ``k``, so their thresholds are
+        computed at once; only peaks and alerts are processed one by one. DSPOT's moving average
+        changes at every step, so it is processed one step at a time.
+        """
         s = np.asarray(scores, dtype=np.float64)
+        if s.size and not np.isfinite(s).all():
+            raise ValueError(f"streamed score {s[~np.isfinite(s)][0]} is not finite")
         thresholds = np.empty(s.size)
         alerts = np.zeros(s.size, dtype=bool)
-        for i, x in enumerate(s.tolist()):  # sequential by definition (see module docstring)
-            step = self.update(x)
-            thresholds[i], alerts[i] = step.threshold, step.alert
+        if self.depth:
+            for i, x in enumerate(s.tolist()):  # sequential by definition (module docstring)
+                step = self.update(x)
+                thresholds[i], alerts[i] = step.threshold, step.alert
+            return thresholds, alerts
+        above = np.flatnonzero(s > self.t).tolist() + [s.size]  # t is fixed in SPOT
+        i = 0
+        for stop in above:  # one iteration per score above t, not per step
+            while i < stop:
+                m = stop - i
+                ks = self.k + np.arange(m)
+                zs = self._z_after_normal_steps(ks)
+                zs[0] = self.z
+                hits = np.flatnonzero(s[i:stop] >= zs)  # alerts below t: only when z_q < t
+                done = int(hits[0]) if hits.size else m
+                thresholds[i : i + done] = zs[:done]
+                if done:
+                    self.k += done
+                    self.z = float(self._z_after_normal_steps(np.array([self.k]))[0]) \
+                        if math.isfinite(self.gamma) else self.z
+                i += done
+                if i < stop:  # an alert inside the stretch
+                    step = self.update(float(s[i]))
+                    thresholds[i], alerts[i] = step.threshold, step.alert
+                    i += 1
+            if stop < s.size:
+                step = self.update(float(s[stop]))
+                thresholds[stop], alerts[stop] = step.threshold, step.alert
+                i = stop + 1
         return thresholds, alerts
