@@ -9,8 +9,10 @@ from __future__ import annotations
 import argparse
 import importlib
 import sys
+import warnings
 
 from benchkit import __version__
+from benchkit.data.validate import DataWarning
 from benchkit.errors import BenchkitInputError
 
 COMMAND_MODULES = (
@@ -53,13 +55,28 @@ def main(argv: list[str] | None = None) -> int:
         parser.print_help()
         return 2
     try:
-        return int(args.func(args) or 0)
+        with warnings.catch_warnings():
+            warnings.showwarning = _data_warnings_as_lines(warnings.showwarning)
+            return int(args.func(args) or 0)
     except BenchkitInputError as exc:
         print(f"benchkit: error: {exc}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
         print("benchkit: interrupted", file=sys.stderr)
         return 130
+
+
+def _data_warnings_as_lines(show):
+    """A ``warnings.showwarning`` that prints a DataWarning as one ``benchkit: warning:`` line
+    (as ``datasets show`` does) and passes every other warning to ``show``."""
+
+    def shown(message, category, filename, lineno, file=None, line=None):
+        if issubclass(category, DataWarning):
+            print(f"benchkit: warning: {message}", file=sys.stderr)
+        else:
+            show(message, category, filename, lineno, file, line)
+
+    return shown
 
 
 if __name__ == "__main__":  # pragma: no cover

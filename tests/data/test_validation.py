@@ -324,6 +324,22 @@ def test_cli_shows_constant_channel_warning_as_one_line(tmp_path, capsys):
     assert "'c01'" in err and "m1" in out
 
 
+def test_run_shows_data_warnings_as_one_line_each(tmp_path, capsys):
+    rng = np.random.default_rng(0)
+    train, test = rng.normal(size=(60, 3)), rng.normal(size=(40, 3))
+    train[:, 2] = 0.5
+    write_entity(tmp_path / "sm", "m1", train, test, (np.arange(40) % 13 == 5).astype(int))
+    spec = tmp_path / "tiny.toml"
+    spec.write_text(
+        'name = "tiny"\n[[datasets]]\nsource = "sm"\n[[detectors]]\nname = "random"\n'
+    )
+    assert main(["run", str(spec), "--out", str(tmp_path / "out"), "--quiet"]) == 0
+    err = capsys.readouterr().err
+    lines = [line for line in err.splitlines() if "constant channel" in line]
+    assert len(lines) == 1 and lines[0].startswith("benchkit: warning: ")
+    assert "DataWarning" not in err
+
+
 def test_demo_option_errors_exit_2(capsys):
     assert main(["datasets", "show", "demo", "-o", "n_channels=30"]) == 2
     err = capsys.readouterr().err
