@@ -93,6 +93,7 @@ def follow_ms(bundle: Bundle, lines: list[str], update: str) -> np.ndarray:
     reader = RowReader(bundle.channels, "<bench>")
     stream = StreamScorer(bundle, update)
     writer = LineWriter(io.StringIO(), "csv", culprits=False)
+    writer.start()
     times = np.empty(len(lines))
     for i, line in enumerate(lines):  # the per-row path itself is what is measured
         t0 = time.perf_counter_ns()

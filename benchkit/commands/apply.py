@@ -13,7 +13,6 @@ import contextlib
 import os
 import sys
 from pathlib import Path
-from typing import IO
 
 from benchkit.deploy.apply import (
     FORMATS,
@@ -120,18 +119,17 @@ def main(args: argparse.Namespace) -> int:
     is_table = args.data != "-" and Path(args.data).suffix == ".parquet"
     if is_table and args.follow:
         raise SpecError("--follow: reads text rows; a .parquet table is applied without it")
-    if is_table:
-        raw = read_table(Path(args.data), bundle.channels)
-    elif not args.follow:
-        with _input(args.data) as (fh, source):
-            raw = read_rows(bundle, fh, source, args.on_bad_row)
-    with _output(args.to, args.follow) as out:
-        out_stream: IO[str] = out
-        writer = LineWriter(out_stream, args.format, attributes, flush=args.follow)
-        if not args.follow:
-            apply_batch(bundle, raw, writer, update, args.depth, top)
-            return 0
-        with _input(args.data) as (fh, source):
+    if args.follow:
+        with _input(args.data) as (fh, source), _output(args.to, True) as out:
+            writer = LineWriter(out, args.format, attributes, flush=True)
             apply_follow(bundle, iter(fh.readline, ""), source, writer, update, args.depth, top,
                          args.on_bad_row)  # fmt: skip
+        return 0
+    if is_table:
+        raw = read_table(Path(args.data), bundle.channels)
+    else:
+        with _input(args.data) as (fh, source):
+            raw = read_rows(bundle, fh, source, args.on_bad_row)
+    with _output(args.to, False) as out:
+        apply_batch(bundle, raw, LineWriter(out, args.format, attributes), update, args.depth, top)
     return 0

@@ -30,8 +30,11 @@ class LineWriter:
 
     def __init__(self, out: IO[str], fmt: str, culprits: bool, flush: bool = False) -> None:
         self.out, self.fmt, self.culprits, self.flush = out, fmt, culprits, flush
-        if fmt == "csv":
-            header = COLUMNS + (("culprits",) if culprits else ())
+
+    def start(self) -> None:
+        """The CSV header (nothing for JSON lines)."""
+        if self.fmt == "csv":
+            header = COLUMNS + (("culprits",) if self.culprits else ())
             self._emit(",".join(header))
 
     def _emit(self, text: str) -> None:
@@ -86,6 +89,7 @@ def apply_batch(bundle: Bundle, raw: np.ndarray, writer: LineWriter, update: str
     scorer = BatchScorer(bundle)
     scores, thresholds, alerts = scorer.run(raw, update, depth)
     attributions = scorer.attributions(raw) if writer.culprits and alerts.any() else None
+    writer.start()  # after scoring: a failure leaves no output at all
     for i in range(scores.size):  # formatting output lines, one per row
         names = None
         if attributions is not None and alerts[i]:
@@ -112,6 +116,7 @@ def apply_follow(bundle: Bundle, lines: Iterable[str], source: str, writer: Line
     check_streamable(bundle)
     reader = RowReader(bundle.channels, source)
     stream = StreamScorer(bundle, update, depth)
+    writer.start()
     alerts = 0
     for item in reader.rows(lines):
         if isinstance(item, RowProblem):

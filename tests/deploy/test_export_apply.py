@@ -286,6 +286,8 @@ def test_a_non_finite_score_is_never_written(follow, bundles, tmp_path, capsys):
                             *(["--follow"] if follow else []))  # fmt: skip
     assert code == 2 and "non-finite score at step 1" in err
     assert "inf" not in out and "nan" not in out
+    if not follow:
+        assert out == ""  # scored before anything is written
 
 
 def test_follow_answers_each_row_as_it_arrives(bundles, test_part):
