@@ -155,6 +155,15 @@ class Detector:
         """Optional threshold suggested by the method itself (e.g. a control limit); ``None``."""
         return None
 
+    def training_record(self) -> dict[str, Any] | None:
+        """How the last fit trained, for detectors trained epoch by epoch; ``None`` otherwise.
+
+        A record holds ``train_loss`` and ``validation_loss`` (one float per epoch),
+        ``best_epoch``, ``stop_epoch`` (from 0) and ``stop_reason`` (``"patience"``,
+        ``"max_epochs"`` or ``"non-finite"``); the protocol stores it with the cell.
+        """
+        return None
+
     def fit(self, train: np.ndarray) -> Detector:  # pragma: no cover - interface
         raise NotImplementedError
 

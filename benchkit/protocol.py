@@ -3,7 +3,9 @@
 The steps, in order (:func:`run_cell`):
 
 1. apply the perturbation to the raw train and/or test series (before scaling);
-2. fit the scaler on train only and transform both parts;
+2. fit the scaler on train only and transform both parts; then apply the spec's
+   ``constant_channels`` rule to the KPIs constant over train (keep, drop or clip; see
+   :data:`benchkit.windows.CONSTANT_CHANNEL_MODES`);
 3. fit the detector on the scaled train series (timed: ``fit_seconds``);
 4. score the train series, and ``vstack(train[-warmup:], test)`` so that every test step gets a
    real score from ``warmup`` steps of context; the context scores are dropped (timed:
@@ -43,7 +45,7 @@ from benchkit.thresholds import (
     pot_threshold,
     quantile_threshold,
 )
-from benchkit.windows import Scaler
+from benchkit.windows import Scaler, handle_constant_channels
 
 PROTOCOL_VERSION = 1
 """Bump when a change to this module changes what a cell computes; it is part of every cell key."""
@@ -64,6 +66,7 @@ def cell_key(
     seed: int,
     perturbation: str,
     scaling: str,
+    constant_channels: str = "keep",
 ) -> str:
     """sha256 hex of everything that determines a cell's scores (metric options excluded)."""
     payload = {
@@ -74,6 +77,7 @@ def cell_key(
         "seed": seed,
         "perturbation": perturbation,
         "scaling": scaling,
+        "constant_channels": constant_channels,
         "protocol": PROTOCOL_VERSION,
     }
     return hashlib.sha256(canonical_json(payload).encode()).hexdigest()
@@ -121,6 +125,7 @@ class CellTask:
     entity: Entity | None = None
     cached_scores: dict[str, Any] | None = None
     save_to: str | None = None
+    constant_channels: str = "keep"
 
 
 @dataclass
@@ -140,6 +145,7 @@ class CellResult:
     measures: dict[str, Any] = field(default_factory=dict)
     evaluation: str | None = None
     evaluated_only: bool = False
+    training: dict[str, Any] | None = None
 
 
 class BadScores(Exception):
@@ -271,6 +277,7 @@ def run_cell(task: CellTask) -> CellResult:
     )
     scaler = Scaler(task.scaling).fit(train)
     train, test = scaler.transform(train), scaler.transform(test)
+    train, test, _ = handle_constant_channels(train, test, task.constant_channels)
     detector = registry.create(task.detector, **task.params)
     t0 = time.perf_counter()
     detector.fit(train)
@@ -290,6 +297,7 @@ def run_cell(task: CellTask) -> CellResult:
     )
     if task.save_to is not None:
         detector.save(task.save_to)
+    training = detector.training_record()
     scores = {
         "test_scores": test_scores,
         "train_scores": train_scores,
@@ -312,6 +320,7 @@ def run_cell(task: CellTask) -> CellResult:
             "warmup": warmup,
         },
         evaluation=task.evaluation.fingerprint(),
+        training=training,
     )
 
 

@@ -158,7 +158,8 @@ def expand_grid(spec: ExperimentSpec, datasets: list[Dataset]) -> list[PlannedCe
                         params["seed"] = seed
                     for p in perturbations:
                         key = cell_key(
-                            det.name, params, fingerprint, entity.name, seed, p.key(), spec.scaling
+                            det.name, params, fingerprint, entity.name, seed, p.key(), spec.scaling,
+                            spec.constant_channels,
                         )
                         # the same data listed twice gives the same cell: keep the first
                         cells.setdefault(
@@ -369,7 +370,8 @@ def _tasks(store: Store, plan: list[PlannedCell], spec: ExperimentSpec, evaluati
         cached = store.load_scores(cell.key) if cell.key in done else None
         tasks.append(CellTask(cell.key, cell.detector.name, cell.params, cell.seed,
                               cell.entity.name, cell.perturbation, spec.scaling, evaluation,
-                              spec.execution.cell_time_limit, cell.entity, cached))  # fmt: skip
+                              spec.execution.cell_time_limit, cell.entity, cached,
+                              constant_channels=spec.constant_channels))  # fmt: skip
     return tasks
 
 
@@ -386,7 +388,8 @@ def _record(
         summary.n_rescored += 1
         return
     store.write_cell(
-        cell.record(scaling, result), run_id, result.scores, result.metrics, result.thresholds
+        cell.record(scaling, result), run_id, result.scores, result.metrics, result.thresholds,
+        result.training,
     )
     if result.status == "ok":
         summary.n_computed += 1

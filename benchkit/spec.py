@@ -6,6 +6,7 @@ Layout (every key is checked; unknown keys are errors)::
     description = ""                  # optional
     seeds = [0, 1]                    # integers >= 0, at least one, no repeats
     scaling = "zscore"                # zscore | minmax | none, always fitted on train only
+    constant_channels = "keep"        # KPIs constant over train: keep | drop | clip
 
     [execution]
     executor = "local"                # local | dask
@@ -36,6 +37,9 @@ Layout (every key is checked; unknown keys are errors)::
     label = "iforest-200"             # optional, unique; default = name
     [detectors.params]                # hyperparameters, validated against the detector schema
     n_estimators = 200
+    [detectors.vary]                  # optional sensitivity sweep: one variant per value (the
+    max_samples = [64, 256]           #   product over several keys), labelled
+                                      #   "iforest-200/max_samples=64", each validated as params
 
     [[sweep]]                         # optional, see benchkit.noise.parse_sweeps
     kind = "multiplicative"
@@ -49,6 +53,7 @@ for example ``detectors[2].params.window: expected an integer >= 2, got "ten"``.
 from __future__ import annotations
 
 import dataclasses
+import itertools
 import json
 import math
 import tomllib
@@ -60,9 +65,11 @@ from typing import Any
 from benchkit import registry
 from benchkit.detector import shown
 from benchkit.errors import DetectorNotFound, ParamError, SpecError
-from benchkit.noise import CLEAN, Perturbation, parse_sweeps
+from benchkit.noise import CLEAN, Perturbation, format_number, parse_sweeps
+from benchkit.windows import CONSTANT_CHANNEL_MODES
 
 SCALINGS = ("zscore", "minmax", "none")
+DEFAULT_CONSTANT_CHANNELS = "keep"
 EXECUTORS = ("local", "dask")
 STRATEGIES = ("oracle", "pot", "quantile", "alert-budget")
 DEFAULT_STRATEGIES = ("oracle", "pot", "quantile")
@@ -74,6 +81,7 @@ _TOP_KEYS = (
     "description",
     "seeds",
     "scaling",
+    "constant_channels",
     "execution",
     "thresholds",
     "metrics",
@@ -117,12 +125,20 @@ class DatasetSpec:
 
 @dataclass(frozen=True)
 class DetectorSpec:
-    """One ``[[detectors]]`` entry: ``params`` as written, ``resolved`` with defaults filled in."""
+    """One detector variant: ``params`` as written, ``resolved`` with defaults filled in.
+
+    A ``[[detectors]]`` entry with a ``vary`` table gives one DetectorSpec per combination of
+    values; each keeps the entry's ``vary`` table, its own ``varied`` values (also merged into
+    ``resolved``) and the entry's label as ``base``.
+    """
 
     name: str
     label: str
     params: dict[str, Any] = field(default_factory=dict)
     resolved: dict[str, Any] = field(default_factory=dict, compare=False)
+    vary: dict[str, list] = field(default_factory=dict)
+    varied: dict[str, Any] = field(default_factory=dict)
+    base: str = ""
 
     @property
     def takes_seed(self) -> bool:
@@ -130,12 +146,56 @@ class DetectorSpec:
         return "seed" in self.resolved
 
     def to_dict(self) -> dict[str, Any]:
+        """The ``[[detectors]]`` entry as written (for a varied variant: its whole entry)."""
         out: dict[str, Any] = {"name": self.name}
-        if self.label != self.name:
-            out["label"] = self.label
+        label = self.base if self.vary else self.label
+        if label != self.name:
+            out["label"] = label
         if self.params:
             out["params"] = _plain(self.params)
+        if self.vary:
+            out["vary"] = _plain(self.vary)
         return out
+
+
+def vary_label(value: Any) -> str:
+    """A varied value as written in a variant label: ``16``, ``0.001``, ``true``, ``learned``."""
+    return value if isinstance(value, str) else format_number(value)
+
+
+def vary_variants(base: str, vary: dict[str, list]) -> list[tuple[str, dict[str, Any]]]:
+    """``(label, values)`` of every combination of a ``vary`` table, keys in the order written.
+
+    Labels read ``base/key=value``, keys joined by commas: ``lstm-vae/window=16,hidden_size=8``.
+    """
+    keys = list(vary)
+    out = []
+    for combo in itertools.product(*(vary[k] for k in keys)):
+        values = dict(zip(keys, combo, strict=True))
+        text = ",".join(f"{k}={vary_label(v)}" for k, v in values.items())
+        out.append((f"{base}/{text}", values))
+    return out
+
+
+def varied_variants(spec: dict[str, Any]) -> list[dict[str, Any]]:
+    """The sensitivity sweeps of a spec written as plain data (``ExperimentSpec.to_dict()``).
+
+    One dict per (variant, varied key): ``variant`` (its label), ``base`` (the entry's label),
+    ``parameter``, ``value`` (as written), ``position`` (its index in the list) and ``others``
+    (the other varied keys of that variant, as ``key=value`` text; ``""`` when one key varies).
+    """
+    out = []
+    for entry in spec.get("detectors", []):
+        vary = entry.get("vary") or {}
+        base = entry.get("label") or entry["name"]
+        for label, values in vary_variants(base, vary):
+            for key, value in values.items():
+                others = ",".join(
+                    f"{k}={vary_label(v)}" for k, v in values.items() if k != key
+                )
+                out.append({"variant": label, "base": base, "parameter": key, "value": value,
+                            "position": vary[key].index(value), "others": others})  # fmt: skip
+    return out
 
 
 @dataclass(frozen=True)
@@ -185,6 +245,7 @@ class ExperimentSpec:
     detectors: tuple[DetectorSpec, ...]
     seeds: tuple[int, ...] = (0,)
     scaling: str = "zscore"
+    constant_channels: str = DEFAULT_CONSTANT_CHANNELS
     description: str = ""
     execution: ExecutionSpec = ExecutionSpec()
     thresholds: ThresholdSpec = ThresholdSpec()
@@ -209,11 +270,18 @@ class ExperimentSpec:
             out["description"] = self.description
         out["seeds"] = list(self.seeds)
         out["scaling"] = self.scaling
+        out["constant_channels"] = self.constant_channels
         out["execution"] = self.execution.to_dict()
         out["thresholds"] = self.thresholds.to_dict()
         out["metrics"] = _plain(self.metrics)
         out["datasets"] = [d.to_dict() for d in self.datasets]
-        out["detectors"] = [d.to_dict() for d in self.detectors]
+        entries, seen = [], set()
+        for d in self.detectors:  # a varied entry is written once, with its vary table
+            if d.vary and d.base in seen:
+                continue
+            seen.add(d.base)
+            entries.append(d.to_dict())
+        out["detectors"] = entries
         if self.sweeps:
             out["sweep"] = [_plain(t) for t in self.sweeps]
         return out
@@ -279,6 +347,8 @@ def parse_spec(data: dict, source: str = "spec", base_dir: Path | None = None) -
         raise SpecError("name: expected a non-empty string")
     seeds = _seeds(data.get("seeds", [0]))
     scaling = _choice(data.get("scaling", "zscore"), SCALINGS, "scaling")
+    constant_channels = _choice(data.get("constant_channels", DEFAULT_CONSTANT_CHANNELS),
+                                CONSTANT_CHANNEL_MODES, "constant_channels")
     execution = _execution(_table(data, "execution"))
     thresholds = _thresholds(_table(data, "thresholds"))
     metrics = _metrics(_table(data, "metrics"))
@@ -291,6 +361,7 @@ def parse_spec(data: dict, source: str = "spec", base_dir: Path | None = None) -
         description=_text(data, "description", ""),
         seeds=seeds,
         scaling=scaling,
+        constant_channels=constant_channels,
         execution=execution,
         thresholds=thresholds,
         metrics=metrics,
@@ -455,11 +526,11 @@ def _datasets(tables: list[dict]) -> tuple[DatasetSpec, ...]:
 
 def _detectors(tables: list[dict]) -> tuple[DetectorSpec, ...]:
     out: list[DetectorSpec] = []
-    labels: dict[str, int] = {}
-    configs: dict[str, int] = {}
+    labels: dict[str, str] = {}
+    configs: dict[str, str] = {}
     for i, t in enumerate(tables):
         where = f"detectors[{i}]"
-        _no_unknown(t, ("name", "label", "params"), where)
+        _no_unknown(t, ("name", "label", "params", "vary"), where)
         name = _text(t, "name", "", required=True, where=f"{where}.name")
         label = _text(t, "label", name, where=f"{where}.label") or name
         params = _table(t, "params", where=f"{where}.params")
@@ -472,19 +543,56 @@ def _detectors(tables: list[dict]) -> tuple[DetectorSpec, ...]:
             raise SpecError(
                 f"{where}.params.seed: set by the experiment's seeds list; remove it here"
             )
-        if label in labels:
-            raise SpecError(
-                f"{where}.label: {show(label)} is already used by detectors[{labels[label]}]; "
-                "give each variant its own label"
-            )
-        config = json.dumps([name, resolved], sort_keys=True, default=str)
-        if config in configs:
-            raise SpecError(
-                f"{where}: same detector and parameters as detectors[{configs[config]}]"
-            )
-        labels[label], configs[config] = i, i
-        out.append(DetectorSpec(name, label, _plain(params), resolved))
+        vary = _vary(cls, t, params, resolved, where)
+        variants = vary_variants(label, vary) if vary else [(label, {})]
+        for variant, values in variants:
+            full = validate_params(cls, {**params, **values}, f"{where}.params") if values \
+                else resolved
+            _unique_variant(name, variant, full, labels, configs, where)
+            out.append(DetectorSpec(name, variant, _plain(params), full, _plain(vary),
+                                    dict(values), label if vary else ""))  # fmt: skip
     return tuple(out)
+
+
+def _unique_variant(name: str, label: str, resolved: dict[str, Any], labels: dict[str, str],
+                    configs: dict[str, str], where: str) -> None:  # fmt: skip
+    """Refuse a variant whose label, or whose detector and parameters, an earlier one has."""
+    if label in labels:
+        raise SpecError(
+            f"{where}.label: {show(label)} is already used by {labels[label]}; "
+            "give each variant its own label"
+        )
+    config = json.dumps([name, resolved], sort_keys=True, default=str)
+    if config in configs:
+        raise SpecError(f"{where}: same detector and parameters as {configs[config]}")
+    labels[label], configs[config] = where, where
+
+
+def _vary(cls: Any, t: dict, params: dict, resolved: dict, where: str) -> dict[str, list]:
+    """Check a ``vary`` table: known hyperparameters, non-empty lists of valid, distinct values,
+    none also in ``params`` and not ``seed``."""
+    vary = _table(t, "vary", where=f"{where}.vary")
+    for key, values in vary.items():
+        path = f"{where}.vary.{key}"
+        if key in params:
+            raise SpecError(f"{path}: also set in {where}.params; give it in one place")
+        if key == "seed" and "seed" in resolved:
+            raise SpecError(f"{path}: set by the experiment's seeds list; remove it here")
+        if key not in resolved:
+            try:
+                cls.validate_params({key: None}, f"{where}.vary")
+            except ParamError as exc:
+                raise SpecError(str(exc)) from None
+        if not isinstance(values, list) or not values:
+            raise SpecError(f"{path}: expected a non-empty list of values, got {show(values)}")
+        for j, value in enumerate(values):
+            try:
+                cls.validate_params({key: value}, "")
+            except ParamError as exc:
+                raise SpecError(f"{path}[{j}]{str(exc).removeprefix(key)}") from None
+        if len({json.dumps(v) for v in values}) != len(values):
+            raise SpecError(f"{path}: lists a value twice: {show(values)}")
+    return vary
 
 
 def validate_params(cls: Any, params: dict[str, Any], where: str) -> dict[str, Any]:

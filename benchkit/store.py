@@ -8,6 +8,7 @@ Tables
 ``metrics``       long form ``(cell_key, threshold, metric, value)``.
 ``cell_thresholds``  the thresholds a cell's metrics used, and POT fit details.
 ``fingerprints``  dataset entity fingerprints per run.
+``training``      the training record of cells whose detector trains epoch by epoch (JSON).
 
 Only the driver process writes. Each cell is written as one transaction, after its score file
 has been written under a temporary name and renamed, so a run killed at any moment leaves either
@@ -93,6 +94,10 @@ CREATE TABLE IF NOT EXISTS cell_thresholds (
     name TEXT NOT NULL,
     value REAL,
     PRIMARY KEY (cell_key, name)
+) WITHOUT ROWID;
+CREATE TABLE IF NOT EXISTS training (
+    cell_key TEXT PRIMARY KEY,
+    record TEXT NOT NULL
 ) WITHOUT ROWID;
 CREATE TABLE IF NOT EXISTS fingerprints (
     run_id INTEGER NOT NULL,
@@ -272,8 +277,11 @@ class Store:
         scores: Mapping[str, np.ndarray] | None,
         metrics: Mapping[tuple[str, str], float],
         thresholds: Mapping[str, float],
+        training: Mapping[str, Any] | None = None,
     ) -> None:
-        """Write a finished cell: its score file first (atomic rename), then one transaction."""
+        """Write a finished cell: its score file first (atomic rename), then one transaction.
+
+        ``training`` is the detector's training record (see ``Detector.training_record``)."""
         if scores is not None:
             self._write_scores(record.cell_key, scores)
         row = record.row(run_id)
@@ -284,6 +292,12 @@ class Store:
                 [row[k] for k in CELL_COLUMNS],
             )
             self._replace_evaluation(c, record.cell_key, metrics, thresholds)
+            c.execute("DELETE FROM training WHERE cell_key = ?", (record.cell_key,))
+            if training is not None:
+                c.execute(
+                    "INSERT INTO training (cell_key, record) VALUES (?, ?)",
+                    (record.cell_key, json.dumps(dict(training), allow_nan=True)),
+                )
 
     def write_evaluation(
         self,
@@ -392,6 +406,29 @@ class Store:
         frame = pd.DataFrame(rows, columns=list(_METRIC_FRAME_COLUMNS))
         frame["value"] = frame["value"].astype(np.float64)
         return frame
+
+    def training_frame(self, run_id: int | None = None) -> pd.DataFrame:
+        """One row per ok cell of a run (default: the latest) that has a training record.
+
+        Columns ``cell_key, variant, detector, dataset, entity, seed, perturbation`` and
+        ``record`` (the dict the detector returned; see ``Detector.training_record``).
+        """
+        cols = ["cell_key", "variant", "detector", "dataset", "entity", "seed", "perturbation"]
+        has_table = self._conn.execute(
+            "SELECT 1 FROM sqlite_master WHERE type = 'table' AND name = 'training'"
+        ).fetchone()
+        if not has_table:  # a results folder written before training records existed
+            return pd.DataFrame(columns=[*cols, "record"])
+        select = ", ".join("rc.variant" if c == "variant" else f"c.{c}" for c in cols)
+        sql = (
+            f"SELECT {select}, t.record FROM run_cells rc JOIN cells c ON c.cell_key = rc.cell_key "
+            "JOIN training t ON t.cell_key = c.cell_key WHERE rc.run_id = ? AND c.status = 'ok' "
+            "ORDER BY rc.variant, c.dataset, c.entity, c.seed, c.perturbation"
+        )
+        rows = self._conn.execute(sql, (self._run_id(run_id),)).fetchall()
+        return pd.DataFrame(
+            [(*r[:-1], json.loads(r[-1])) for r in rows], columns=[*cols, "record"]
+        )
 
     def cell(self, cell_key: str) -> dict[str, Any] | None:
         """The ``cells`` row of one key as a dict, or ``None``."""

@@ -1,6 +1,15 @@
-"""Summaries of a noise sweep, computed from the store's long metrics frame.
+"""Summaries of swept axes (noise sweeps and hyperparameter sensitivity), from the store's long
+metrics frame.
 
-A sweep is one ``(noise_kind, noise_apply)`` pair over several levels. The clean rows
+Both are the same shape: a metric against a level, per detector, with the spread over seeds.
+Each has its own row builder (:func:`_sweep_rows`, :func:`_sensitivity_rows`) giving rows
+``variant, kind, apply_to, level, seed, value``; one summariser (:func:`axis_curves`,
+:func:`axis_summary`) serves both. For a sensitivity sweep ``variant`` is the detector entry's
+label, ``kind`` the varied hyperparameter, ``apply_to`` the other varied values of the variant
+(``""`` when one key varies), and ``level`` the value (its position in the list when the values
+are not numbers).
+
+A noise sweep is one ``(noise_kind, noise_apply)`` pair over several levels. The clean rows
 (``noise_kind == "none"``, level 0) belong to every sweep as its level 0. Values are averaged
 over datasets, entities and seeds before anything else is computed.
 
@@ -26,6 +35,7 @@ from benchkit.noise import CLEAN_KIND, format_number
 LOWER_IS_BETTER = frozenset({"delay_mean", "delay_median"})
 _NEEDED = ("variant", "noise_kind", "noise_level", "noise_apply", "threshold", "metric", "value")
 _GROUP = ["variant", "kind", "apply_to"]
+SPREADS = ("values", "seeds")
 
 
 def robustness_index(levels, values) -> float:
@@ -53,13 +63,15 @@ def robustness_index(levels, values) -> float:
     return area / (float(y[0]) * float(x[-1] - x[0]))
 
 
-def _sweep_rows(
-    frame: pd.DataFrame, metric: str, threshold: str, kind: str | None, apply_to: str | None
-) -> pd.DataFrame:
-    """``metric`` rows as ``variant, kind, apply_to, level, value``; clean rows join every sweep."""
-    cols = [*_GROUP, "level", "value"]
-    if frame.empty:  # no results at all: nothing to summarise
-        return pd.DataFrame({c: pd.Series(dtype=object) for c in cols}).astype({"level": float})
+def _empty_rows() -> pd.DataFrame:
+    cols = [*_GROUP, "level", "seed", "value"]
+    return pd.DataFrame({c: pd.Series(dtype=object) for c in cols}).astype({"level": float})
+
+
+def _metric_rows(frame: pd.DataFrame, metric: str, threshold: str) -> pd.DataFrame | None:
+    """The rows of ``metric`` under ``threshold`` (or threshold-free); None for an empty frame."""
+    if frame.empty:
+        return None
     missing = [c for c in _NEEDED if c not in frame.columns]
     if missing:
         raise ValueError(f"metrics frame lacks columns: {', '.join(missing)}")
@@ -67,8 +79,44 @@ def _sweep_rows(
         known = ", ".join(sorted(set(frame["metric"]))) or "(none)"
         raise SpecError(f"metric: {metric!r} is not in these results; present: {known}")
     rows = frame[frame["metric"] == metric]
+    if "seed" not in rows.columns:  # a frame without seeds: every value counts as one seed's
+        rows = rows.assign(seed=0)
     at_threshold = rows["threshold"] == threshold
-    rows = rows[at_threshold] if at_threshold.any() else rows[rows["threshold"] == "none"]
+    return rows[at_threshold] if at_threshold.any() else rows[rows["threshold"] == "none"]
+
+
+def _sensitivity_rows(
+    frame: pd.DataFrame, metric: str, threshold: str, varied: list[dict]
+) -> pd.DataFrame:
+    """Clean ``metric`` rows of the varied variants (``benchkit.spec.varied_variants``) as
+    ``variant, kind, apply_to, level, seed, value`` (see the module docstring)."""
+    rows = _metric_rows(frame, metric, threshold)
+    if rows is None or not varied:
+        return _empty_rows()
+    rows = rows[rows["noise_kind"] == CLEAN_KIND]
+    table = pd.DataFrame(varied)
+    numeric = table.groupby("parameter")["value"].transform(
+        lambda v: all(isinstance(x, (int, float)) and not isinstance(x, bool) for x in v)
+    ).astype(bool)
+    table["level"] = np.where(numeric, table["value"].where(numeric, 0), table["position"])
+    table = table.rename(columns={"base": "kind_base"})
+    merged = rows[["variant", "seed", "value"]].merge(
+        table[["variant", "kind_base", "parameter", "others", "level"]], on="variant"
+    )
+    merged = merged.drop(columns="variant").rename(
+        columns={"kind_base": "variant", "parameter": "kind", "others": "apply_to"}
+    )
+    return merged[[*_GROUP, "level", "seed", "value"]].astype({"level": np.float64})
+
+
+def _sweep_rows(
+    frame: pd.DataFrame, metric: str, threshold: str, kind: str | None, apply_to: str | None
+) -> pd.DataFrame:
+    """``metric`` rows as ``variant, kind, apply_to, level, value``; clean rows join every sweep."""
+    cols = [*_GROUP, "level", "seed", "value"]
+    rows = _metric_rows(frame, metric, threshold)
+    if rows is None:  # no results at all: nothing to summarise
+        return _empty_rows()
     clean_mask = rows["noise_kind"] == CLEAN_KIND
     noisy = rows[~clean_mask]
     if kind is not None:
@@ -76,7 +124,7 @@ def _sweep_rows(
     if apply_to is not None:
         noisy = noisy[noisy["noise_apply"] == apply_to]
     sweeps = noisy[["noise_kind", "noise_apply"]].drop_duplicates()
-    clean = rows.loc[clean_mask, ["variant", "value"]].assign(level=0.0)
+    clean = rows.loc[clean_mask, ["variant", "seed", "value"]].assign(level=0.0)
     parts = [
         noisy.rename(
             columns={"noise_kind": "kind", "noise_apply": "apply_to", "noise_level": "level"}
@@ -108,7 +156,28 @@ def sweep_curves(
     One row per (variant, kind, apply_to, level): ``mean`` and ``std`` (sample standard
     deviation, NaN for one value) over datasets, entities and seeds, and ``n`` values.
     """
-    rows = _sweep_rows(frame, metric, threshold, kind, apply_to)
+    return axis_curves(_sweep_rows(frame, metric, threshold, kind, apply_to))
+
+
+def axis_curves(rows: pd.DataFrame, spread: str = "values") -> pd.DataFrame:
+    """The shared summariser's first half: metric against level per ``variant, kind, apply_to``.
+
+    Parameters
+    ----------
+    rows : ``variant, kind, apply_to, level, seed, value`` (from a row builder).
+    spread : ``"values"``: mean and std over every value at a level (datasets, entities and
+        seeds); ``"seeds"``: values are first averaged over datasets and entities per seed, and
+        the std is over those per-seed means (NaN with one seed).
+
+    Returns
+    -------
+    One row per (variant, kind, apply_to, level): ``mean``, ``std`` (sample, ddof=1) and ``n``
+    (values, or seeds).
+    """
+    if spread not in SPREADS:
+        raise ValueError(f"spread: expected one of {', '.join(SPREADS)}, got {spread!r}")
+    if spread == "seeds" and len(rows):
+        rows = rows.groupby([*_GROUP, "level", "seed"], sort=True)["value"].mean().reset_index()
     grouped = rows.groupby([*_GROUP, "level"], sort=True)["value"]
     curves = grouped.agg(mean="mean", std="std", n="count").reset_index()
     return curves[[*_GROUP, "level", "mean", "std", "n"]]
@@ -140,6 +209,35 @@ def sweep_summary(
     if higher_is_better is None:
         higher_is_better = metric not in LOWER_IS_BETTER
     curves = sweep_curves(frame, metric, threshold, kind, apply_to)
+    return axis_summary(curves, higher_is_better)
+
+
+def sensitivity_curves(
+    frame: pd.DataFrame, metric: str, threshold: str, varied: list[dict]
+) -> pd.DataFrame:
+    """Metric against each varied hyperparameter's value, clean cells only.
+
+    ``varied`` is ``benchkit.spec.varied_variants(spec)``. Columns as :func:`axis_curves`
+    with ``spread="seeds"``: ``variant`` is the detector entry's label, ``kind`` the
+    hyperparameter, ``apply_to`` the other varied values, ``std`` the spread over seeds.
+    """
+    return axis_curves(_sensitivity_rows(frame, metric, threshold, varied), spread="seeds")
+
+
+def sensitivity_summary(
+    frame: pd.DataFrame, metric: str, threshold: str, varied: list[dict],
+    higher_is_better: bool | None = None,
+) -> pd.DataFrame:
+    """:func:`axis_summary` of :func:`sensitivity_curves`: one row per varied hyperparameter
+    (and combination of the other varied values) of each detector entry."""
+    if higher_is_better is None:
+        higher_is_better = metric not in LOWER_IS_BETTER
+    return axis_summary(sensitivity_curves(frame, metric, threshold, varied), higher_is_better)
+
+
+def axis_summary(curves: pd.DataFrame, higher_is_better: bool = True) -> pd.DataFrame:
+    """The shared summariser's second half: one row per (variant, kind, apply_to) of ``curves``
+    (see :func:`sweep_summary` for the columns)."""
     if curves.empty:  # no sweep in these results
         return pd.DataFrame(columns=[*_GROUP, "max_level", "relative_drop", "robustness_index"])
     levels = sorted(curves["level"].unique())

@@ -62,3 +62,52 @@ class Scaler:
 
     def fit_transform(self, train: np.ndarray) -> np.ndarray:
         return self.fit(train).transform(train)
+
+
+CONSTANT_CHANNEL_MODES = ("keep", "drop", "clip")
+"""What the protocol does with KPIs that are constant over train (spec key ``constant_channels``):
+
+* ``keep``: nothing; they enter every detector as they are (constant in train, free in test);
+* ``drop``: they are removed from train and test before any detector sees the series;
+* ``clip``: every channel's scaled test values are clipped into the range the channel spanned
+  in the scaled train series, so a KPI constant in train stays at its train value in test.
+"""
+
+
+def constant_in_train(train: np.ndarray) -> np.ndarray:
+    """Boolean mask of the channels whose train values do not vary (range <= 1e-12 of scale)."""
+    x = np.asarray(train, dtype=np.float64)
+    low, high = x.min(axis=0), x.max(axis=0)
+    return (high - low) <= 1e-12 * np.maximum(1.0, np.abs(low))
+
+
+def handle_constant_channels(
+    train: np.ndarray, test: np.ndarray, mode: str
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Apply a :data:`CONSTANT_CHANNEL_MODES` rule to a scaled train/test pair.
+
+    Returns
+    -------
+    train, test : the series the detector sees.
+    kept : indices of the original channels they hold (all of them unless ``mode == "drop"``).
+
+    Raises ValueError for an unknown mode, or when ``drop`` would leave no channel.
+    """
+    if mode not in CONSTANT_CHANNEL_MODES:
+        raise ValueError(
+            f"unknown constant_channels {mode!r}; valid: {', '.join(CONSTANT_CHANNEL_MODES)}"
+        )
+    d = train.shape[1]
+    if mode == "keep":
+        return train, test, np.arange(d)
+    if mode == "clip":
+        return train, np.clip(test, train.min(axis=0), train.max(axis=0)), np.arange(d)
+    kept = np.flatnonzero(~constant_in_train(train))
+    if kept.size == 0:
+        raise ValueError(
+            f"all {d} channels are constant over train: constant_channels = \"drop\" leaves "
+            "no input"
+        )
+    if kept.size == d:
+        return train, test, kept
+    return train[:, kept], test[:, kept], kept

@@ -165,9 +165,19 @@ class TrainSettings:
     label: str = "fit"
 
 
+STOP_PATIENCE = "patience"
+STOP_MAX_EPOCHS = "max_epochs"
+STOP_NON_FINITE = "non-finite"
+
+
 @dataclass
 class TrainHistory:
-    """What happened during training (losses are mean negative ELBO per window at beta = 1)."""
+    """What happened during training (losses are mean negative ELBO per window at beta = 1).
+
+    ``stop_reason`` is ``"patience"`` (no validation improvement for ``patience`` epochs),
+    ``"max_epochs"`` (the epoch budget ran out) or ``"non-finite"`` (a loss overflowed);
+    ``""`` before training. Epochs count from 0; the best epoch's weights are the ones kept.
+    """
 
     train_loss: list[float] = field(default_factory=list)
     validation_loss: list[float] = field(default_factory=list)
@@ -175,9 +185,29 @@ class TrainHistory:
     stopped_early: bool = False
     n_train_windows: int = 0
     n_validation_windows: int = 0
+    stop_reason: str = ""
+    windows_per_epoch: int = 0
+
+    @property
+    def stop_epoch(self) -> int:
+        """The last epoch run (from 0); -1 before training."""
+        return len(self.train_loss) - 1
 
     def to_dict(self) -> dict[str, Any]:
         return dict(self.__dict__)
+
+    def record(self) -> dict[str, Any]:
+        """The training record a cell stores: losses per epoch, where and why it stopped."""
+        return {
+            "train_loss": [float(v) for v in self.train_loss],
+            "validation_loss": [float(v) for v in self.validation_loss],
+            "best_epoch": int(self.best_epoch),
+            "stop_epoch": int(self.stop_epoch),
+            "stop_reason": self.stop_reason,
+            "windows_per_epoch": int(self.windows_per_epoch),
+            "n_train_windows": int(self.n_train_windows),
+            "n_validation_windows": int(self.n_validation_windows),
+        }
 
 
 def split_train(train: np.ndarray, window: int, fraction: float) -> tuple[np.ndarray, np.ndarray]:
@@ -262,7 +292,8 @@ def train_on_windows(
     val_views = sliding_windows(val_part, s.window) if len(val_part) else fit_views
     n_val = len(val_views)
     val_index = np.unique(np.linspace(0, n_val - 1, min(n_val, VALIDATION_CAP)).astype(np.int64))
-    history = TrainHistory(n_train_windows=len(fit_views), n_validation_windows=len(val_index))
+    history = TrainHistory(n_train_windows=len(fit_views), n_validation_windows=len(val_index),
+                           windows_per_epoch=min(len(fit_views), s.max_train_windows))
     rng = np.random.default_rng([s.seed, 1])
     generator = torch_generator(s.seed, 3)
     optimizer = torch.optim.Adam(model.parameters(), lr=s.learning_rate)
@@ -281,7 +312,9 @@ def train_on_windows(
         history.train_loss.append(train_loss)
         history.validation_loss.append(val_loss)
         epochs.set_postfix(train=f"{train_loss:.4g}", validation=f"{val_loss:.4g}")
+        history.stop_reason = STOP_MAX_EPOCHS
         if not math.isfinite(val_loss):
+            history.stop_reason = STOP_NON_FINITE
             break
         if val_loss < best_loss:
             best_loss, best_state, waited = val_loss, copy.deepcopy(model.state_dict()), 0
@@ -290,6 +323,7 @@ def train_on_windows(
             waited += 1
             if waited >= s.patience:
                 history.stopped_early = True
+                history.stop_reason = STOP_PATIENCE
                 break
     epochs.close()
     if best_state is None:
@@ -394,6 +428,11 @@ class TorchWindowDetector(Detector):
                 return model.last_step_nll(batch, self.score_samples, torch_generator(self.seed, 4))
 
             return score_last_points(x, self.window, last_nll)
+
+    def training_record(self) -> dict[str, Any] | None:
+        """Per-epoch losses and the stop epoch and reason of the last fit (``None`` unfitted)."""
+        history = getattr(self, "history_", None)
+        return None if history is None else history.record()
 
     def parameter_count(self) -> int:
         """Number of trainable weights of the fitted model."""

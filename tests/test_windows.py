@@ -9,7 +9,7 @@ from hypothesis import strategies as st
 from numpy.lib.stride_tricks import sliding_window_view
 from sklearn.preprocessing import MinMaxScaler, StandardScaler
 
-from benchkit.windows import Scaler, sliding_windows
+from benchkit.windows import Scaler, constant_in_train, handle_constant_channels, sliding_windows
 
 
 def _reference(series: np.ndarray, window: int, stride: int) -> np.ndarray:
@@ -103,3 +103,24 @@ def test_scaler_none_and_unknown():
     np.testing.assert_array_equal(Scaler("none").fit_transform(x), x)
     with pytest.raises(ValueError, match="unknown scaling"):
         Scaler("robust")
+
+
+def test_constant_channels_keep_drop_clip_on_the_public_data_facts():
+    # reference: the public data README says some KPIs are constant over train but move in test;
+    # this invented pair has channel 1 constant in train and moving in test, channel 0 varying.
+    train = np.column_stack([np.arange(10.0), np.full(10, 3.0)])
+    test = np.column_stack([np.arange(10.0, 15.0), np.array([3.0, 4.0, 3.0, 9.0, 3.0])])
+    assert constant_in_train(train).tolist() == [False, True]
+    kept_train, kept_test, kept = handle_constant_channels(train, test, "keep")
+    assert kept_train is train and kept_test is test and kept.tolist() == [0, 1]
+    dropped_train, dropped_test, kept = handle_constant_channels(train, test, "drop")
+    np.testing.assert_array_equal(dropped_train, train[:, [0]])
+    np.testing.assert_array_equal(dropped_test, test[:, [0]])
+    assert kept.tolist() == [0]
+    _, clipped, _ = handle_constant_channels(train, test, "clip")
+    # reference: numpy.clip into each channel's train range, written out by hand
+    np.testing.assert_array_equal(clipped, [[9, 3], [9, 3], [9, 3], [9, 3], [9, 3]])
+    with pytest.raises(ValueError, match="constant_channels"):
+        handle_constant_channels(train, test, "zero")
+    with pytest.raises(ValueError, match="leaves no input"):
+        handle_constant_channels(train[:, [1]], test[:, [1]], "drop")

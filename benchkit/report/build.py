@@ -14,6 +14,7 @@ from benchkit.report.files import write_text_atomic
 from benchkit.report.html import build_html
 from benchkit.report.render import EXTENSIONS, check_format, render_table
 from benchkit.report.scorecard import write_scorecard
+from benchkit.report.sensitivity import sensitivity_table
 from benchkit.report.tables import (
     CLEAN,
     STRATEGIES,
@@ -24,7 +25,9 @@ from benchkit.report.tables import (
     robustness_table,
     timing_table,
 )
+from benchkit.report.training import training_curves, training_table
 from benchkit.report.uncertainty import load_clean_scores, uncertainty_table
+from benchkit.spec import varied_variants
 from benchkit.store import Store
 from benchkit.sweep import sweep_curves
 
@@ -62,11 +65,14 @@ def build_tables(
     metric: str = "f1",
     threshold: str | None = None,
     store: Store | None = None,
+    spec: dict | None = None,
 ) -> list[Table]:
     """Comparison tables (every strategy in the run, or only ``threshold``), with ``store``
     the bootstrap-interval tables of the same strategies (they need the cached scores), then
-    the timing, robustness and rank tables for ``metric`` under ``threshold`` (default: the
-    first strategy present, in the order oracle, pot, quantile). The rank table is last."""
+    the timing table, with ``store`` the training table (how the deep cells trained), with a
+    ``spec`` (plain data) that varies hyperparameters the sensitivity table, then the
+    robustness and rank tables for ``metric`` under ``threshold`` (default: the first strategy
+    present, in the order oracle, pot, quantile). The rank table is last."""
     check_choices(metrics, metric, threshold)
     chosen = chosen_threshold(metrics, threshold)
     shown = [threshold] if threshold else _strategies(metrics)
@@ -75,6 +81,9 @@ def build_tables(
         *(comparison_table(metrics, s) for s in shown),
         *(uncertainty_table(cached, s) for s in shown if cached is not None),
         timing_table(cells),
+        *([training_table(store.training_frame())] if store is not None else []),
+        *([sensitivity_table(metrics, varied_variants(spec), metric, chosen)]
+          if spec is not None and varied_variants(spec) else []),
         robustness_table(metrics, metric, chosen),
         rank_table(metrics, metric, chosen),
     ]
@@ -103,7 +112,7 @@ def build_plots(
     store: Store, metrics: pd.DataFrame, cells: pd.DataFrame, spec: dict, rank: Table,
     metric: str, threshold: str, folder: Path,
 ) -> list[tuple[str, str, Path]]:
-    """Write the four PNGs to ``folder``; return ``(name, caption, path)`` triples.
+    """Write the PNGs to ``folder``; return ``(name, caption, path)`` triples.
 
     ``cells`` and ``spec`` are the store's cells frame and the latest run's spec, already read
     by the caller; ``store`` is used only for the cached scores of the traced entity."""
@@ -129,6 +138,17 @@ def build_plots(
     prevalence = float(np.mean(cached[0][1]["labels"])) if cached else np.nan
     out.append(("pr-curves", f"Point-wise precision-recall curves on {entity}",
                 plots.plot_pr_curves(pr, prevalence, folder / "pr-curves.png", entity)))
+    varied = varied_variants(spec)
+    if varied:
+        sensitivity = sensitivity_table(metrics, varied, metric, threshold).data
+        out.append(("sensitivity", f"{metric} versus each varied hyperparameter "
+                    "(± std over seeds)",
+                    plots.plot_sensitivity(sensitivity, metric, folder / "sensitivity.png")))
+    losses = training_curves(store.training_frame())
+    if not losses.empty:
+        out.append(("training-loss", "Train and validation loss per epoch of the deep detectors "
+                    "(clean run; one colour per entity)",
+                    plots.plot_training_curves(losses, folder / "training-loss.png")))
     return out
 
 
@@ -158,7 +178,7 @@ def write_all(
         metrics, cells, run = store.metrics_frame(), store.cells_frame(), store.latest_run()
         if metrics.empty:
             raise DataError(f"{out}: the latest run has no successful cell to report on")
-        tables = build_tables(metrics, cells, metric, threshold, store)
+        tables = build_tables(metrics, cells, metric, threshold, store, run["spec"])
         for table in tables:
             path = out / "tables" / f"{table.name}.{EXTENSIONS[fmt]}"
             written[f"table:{table.name}"] = write_text_atomic(path, render_table(table, fmt))

@@ -261,3 +261,102 @@ def pr_figure(
     ax.grid(alpha=0.3)
     ax.legend(fontsize="small", loc="best")
     return fig
+
+
+def plot_training_curves(curves: pd.DataFrame, path: Path) -> Path:
+    """Write :func:`training_figure` as a PNG to ``path``."""
+    return _save(training_figure(curves), path)
+
+
+def training_figure(curves: pd.DataFrame) -> Figure:
+    """Train and validation loss per epoch, one panel per detector, entities overlaid.
+
+    ``curves`` is :func:`benchkit.report.training.training_curves`: one colour per
+    dataset/entity, validation loss solid, train loss dashed; each seed is its own line. A
+    cross marks the epoch whose weights were kept (the lowest validation loss).
+    """
+    variants = sorted(curves["variant"].unique()) if len(curves) else []
+    n = max(len(variants), 1)
+    cols = min(n, 3)
+    rows = (n + cols - 1) // cols
+    width, height = 4.6 * cols + 2.4, 3.3 * rows + 0.6
+    fig = Figure(figsize=(width, height))
+    fig.subplots_adjust(left=0.6 / width, right=1 - 2.5 / width, bottom=0.55 / height,
+                        top=1 - 0.45 / height, wspace=0.3, hspace=0.5)
+    axes = fig.subplots(rows, cols, squeeze=False).ravel()
+    entities = sorted({f"{d}/{e}" for d, e in zip(curves.get("dataset", []),
+                                                  curves.get("entity", []), strict=True)})
+    colour = {name: OKABE_ITO[(i + 1) % len(OKABE_ITO)] for i, name in enumerate(entities)}
+    for ax, variant in zip(axes, variants, strict=False):
+        panel = curves[curves["variant"] == variant]
+        for (dataset, entity, _seed), line in panel.groupby(["dataset", "entity", "seed"]):
+            c = colour[f"{dataset}/{entity}"]
+            x = line["epoch"].to_numpy()
+            val = line["validation_loss"].to_numpy(float)
+            ax.plot(x, val, color=c, linewidth=1.2)
+            ax.plot(x, line["train_loss"].to_numpy(float), color=c, linewidth=0.8, linestyle="--")
+            if np.isfinite(val).any():
+                best = int(np.nanargmin(val))
+                ax.plot(x[best], val[best], marker="x", color=c, markersize=6)
+        ax.set_title(variant, fontsize="medium", loc="left")
+        ax.set_xlabel("epoch (from 0)")
+        ax.set_ylabel("loss (negative ELBO per window)", fontsize="small")
+        ax.grid(alpha=0.3)
+    for ax in axes[len(variants):]:
+        ax.set_axis_off()
+    if not variants:
+        axes[0].set_axis_on()
+        axes[0].text(0.5, 0.5, "no cell trained epoch by epoch", ha="center", va="center")
+    handles = [axes[0].plot([], [], color=colour[e], label=e)[0] for e in entities]
+    handles += [axes[0].plot([], [], color="#777777", label="validation")[0],
+                axes[0].plot([], [], color="#777777", linestyle="--", label="train")[0],
+                axes[0].plot([], [], color="#777777", marker="x", linestyle="",
+                             label="kept (best) epoch")[0]]  # fmt: skip
+    if variants:
+        fig.legend(handles=handles, fontsize="small", loc="upper left",
+                   bbox_to_anchor=(1 - 2.4 / width, 1 - 0.45 / height))
+    return fig
+
+
+def plot_sensitivity(curves: pd.DataFrame, metric: str, path: Path) -> Path:
+    """Write :func:`sensitivity_figure` as a PNG to ``path``."""
+    return _save(sensitivity_figure(curves, metric), path)
+
+
+def sensitivity_figure(curves: pd.DataFrame, metric: str) -> Figure:
+    """Metric against each varied hyperparameter, one panel per (detector entry, parameter).
+
+    ``curves`` is the ``data`` of :func:`benchkit.report.sensitivity.sensitivity_table`
+    (``variant, kind, apply_to, level, mean, std, value``); error bars are ± one std over
+    seeds; one line per combination of the other varied values.
+    """
+    panels = sorted(curves.groupby(["variant", "kind"]).groups) if len(curves) else []
+    n = max(len(panels), 1)
+    cols = min(n, 3)
+    rows = (n + cols - 1) // cols
+    width, height = 4.8 * cols + 0.8, 3.4 * rows + 0.5
+    fig = Figure(figsize=(width, height))
+    fig.subplots_adjust(left=0.7 / width, right=1 - 0.2 / width, bottom=0.6 / height,
+                        top=1 - 0.45 / height, wspace=0.3, hspace=0.55)
+    axes = fig.subplots(rows, cols, squeeze=False).ravel()
+    for ax, (variant, kind) in zip(axes, panels, strict=False):
+        panel = curves[(curves["variant"] == variant) & (curves["kind"] == kind)]
+        for i, (others, line) in enumerate(panel.groupby("apply_to", sort=True)):
+            line = line.sort_values("level")
+            style = series_style(i)
+            ax.errorbar(line["level"].to_numpy(float), line["mean"].to_numpy(float),
+                        yerr=np.nan_to_num(line["std"].to_numpy(float)), capsize=3,
+                        label=others or None, **style)  # fmt: skip
+            ax.set_xticks(line["level"].to_numpy(float), line["value"].astype(str).tolist())
+        ax.set_title(variant, fontsize="medium", loc="left")
+        ax.set_xlabel(f"{kind} (value as listed in vary)")
+        ax.set_ylabel(metric_axis_label(metric))
+        ax.grid(alpha=0.3)
+        if panel["apply_to"].astype(bool).any():
+            ax.legend(fontsize="x-small", loc="best")
+    for ax in axes[len(panels):]:
+        ax.set_axis_off()
+    if not panels:
+        axes[0].set_axis_on()
+        axes[0].text(0.5, 0.5, "this run varies no hyperparameter", ha="center", va="center")
+    return fig

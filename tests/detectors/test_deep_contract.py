@@ -194,6 +194,13 @@ def test_early_stopping_and_best_weights(series) -> None:
     if h.stopped_early:  # stopped one epoch after the best, by the patience of 1
         assert len(h.validation_loss) == h.best_epoch + 2
     assert h.n_validation_windows == 60 - TINY["window"] + 1  # the last 15% of 400 steps
+    assert h.stop_reason == ("patience" if h.stopped_early else "max_epochs")
+    record = det.training_record()
+    assert record["stop_epoch"] == len(h.train_loss) - 1 and record["best_epoch"] == h.best_epoch
+    assert record["validation_loss"] == h.validation_loss
+    # a budget of 2 epochs inside a 3-epoch KL warm-up can only end at max_epochs
+    short = tiny("lstm-vae", max_epochs=2).fit(train).training_record()
+    assert (short["stop_reason"], short["stop_epoch"]) == ("max_epochs", 1)
 
 
 def test_progress_bar_is_silent_off_a_terminal(series, capsys) -> None:

@@ -120,7 +120,9 @@ def test_export_writes_tables_that_read_back(first_run, tmp_path, capsys):
     assert sorted(p.name for p in (tmp_path / "pq").iterdir()) == [
         "cells.parquet",
         "metrics.parquet",
+        "training.parquet",  # empty: no detector of this run trains epoch by epoch
     ]
+    assert pq.read_table(tmp_path / "pq" / "training.parquet").num_rows == 0
     capsys.readouterr()
 
 

@@ -14,6 +14,7 @@ from benchkit.spec import (
     metric_options,
     parse_spec,
     parse_toml,
+    vary_variants,
 )
 
 MINIMAL = {
@@ -83,6 +84,35 @@ def test_variants_resolve_defaults_and_sweeps_expand():
         make_perturbation("multiplicative", 0.2, "both"),
     )
     assert parse_spec(spec.to_dict()) == spec
+
+
+def test_vary_expands_into_labelled_variants_and_round_trips():
+    spec = parse_spec(_with(detectors=[
+        {"name": "random"},
+        {"name": "runner.plugins:Windowed", "label": "w", "vary": {"window": [4, 16]}},
+    ]))
+    variants = spec.detectors[1:]
+    assert [d.label for d in variants] == ["w/window=4", "w/window=16"]
+    assert [d.resolved["window"] for d in variants] == [4, 16]
+    assert all(d.base == "w" and d.params == {} for d in variants)
+    assert spec.to_dict()["detectors"][1] == {
+        "name": "runner.plugins:Windowed", "label": "w", "vary": {"window": [4, 16]}
+    }
+    assert parse_spec(spec.to_dict()) == spec
+    # reference: tomllib reads our TOML writer's text back to the same data
+    assert tomllib.loads(spec.to_toml()) == spec.to_dict()
+    assert spec.constant_channels == "keep"
+
+
+def test_vary_over_two_keys_is_their_product_in_the_order_written():
+    # reference: itertools.product order (the first key varies slowest)
+    assert vary_variants("lstm-vae", {"window": [16, 32], "learning_rate": [0.001, 0.01]}) == [
+        ("lstm-vae/window=16,learning_rate=0.001", {"window": 16, "learning_rate": 0.001}),
+        ("lstm-vae/window=16,learning_rate=0.01", {"window": 16, "learning_rate": 0.01}),
+        ("lstm-vae/window=32,learning_rate=0.001", {"window": 32, "learning_rate": 0.001}),
+        ("lstm-vae/window=32,learning_rate=0.01", {"window": 32, "learning_rate": 0.01}),
+    ]
+    assert vary_variants("f", {"static_latent": [True, False]})[1][0] == "f/static_latent=false"
 
 
 def test_metric_options_reach_metric_options():
@@ -171,6 +201,50 @@ def test_metric_options_reach_metric_options():
             "sweep[0].apply_to",
         ),
         ({"sweep": [{"kind": "additive", "levels": [-0.1]}]}, "sweep[0].levels"),
+        (
+            {"detectors": [{"name": "runner.plugins:Windowed", "vary": {"windw": [3]}}]},
+            "detectors[0].vary.windw: unknown hyperparameter",
+        ),
+        (
+            {"detectors": [{"name": "runner.plugins:Windowed", "vary": {"window": [4, 1]}}]},
+            "detectors[0].vary.window[1]: expected an integer >= 2, got 1",
+        ),
+        (
+            {"detectors": [{"name": "runner.plugins:Windowed", "vary": {"window": []}}]},
+            "detectors[0].vary.window: expected a non-empty list of values, got []",
+        ),
+        (
+            {"detectors": [{"name": "runner.plugins:Windowed", "vary": {"window": 4}}]},
+            "detectors[0].vary.window: expected a non-empty list of values, got 4",
+        ),
+        (
+            {"detectors": [{"name": "runner.plugins:Windowed", "params": {"window": 4},
+                            "vary": {"window": [4, 8]}}]},
+            "detectors[0].vary.window: also set in detectors[0].params",
+        ),
+        (
+            {"detectors": [{"name": "runner.plugins:Windowed", "vary": {"window": [4, 4]}}]},
+            "detectors[0].vary.window: lists a value twice: [4, 4]",
+        ),
+        (
+            {"detectors": [{"name": "random", "vary": {"seed": [1, 2]}}]},
+            "detectors[0].vary.seed: set by the experiment's seeds list",
+        ),
+        (
+            {"detectors": [{"name": "runner.plugins:Windowed", "vary": [4]}]},
+            "detectors[0].vary: expected a table, got [4]",
+        ),
+        (
+            {"detectors": [
+                {"name": "runner.plugins:Windowed", "label": "w", "vary": {"window": [4, 16]}},
+                {"name": "random", "label": "w/window=4"},
+            ]},
+            'detectors[1].label: "w/window=4" is already used by detectors[0]',
+        ),
+        (
+            {"constant_channels": "zero"},
+            'constant_channels: expected one of keep, drop, clip, got "zero"',
+        ),
     ],
 )
 def test_errors_start_with_the_key_path(changes, message):
