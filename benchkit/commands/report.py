@@ -15,8 +15,9 @@ def add_parser(subparsers) -> None:
         "report",
         help="print the tables of a results folder and write its report files",
         description=(
-            "Print the comparison, uncertainty, timing, robustness and rank tables of a results "
-            "folder and write OUT/tables/*, OUT/plots/*.png, OUT/report.html and "
+            "Print the decision summary (alerts, detection, cost, ties per label-free threshold "
+            "strategy) and then the comparison, uncertainty, timing, robustness and rank tables "
+            "of a results folder; write OUT/tables/*, OUT/plots/*.png, OUT/report.html and "
             "OUT/scorecard.json."
         ),
     )
@@ -28,7 +29,8 @@ def add_parser(subparsers) -> None:
                              "(default: f1)")
     parser.add_argument("--threshold", choices=STRATEGIES, default=None,
                         help="threshold strategy to show (default: every strategy in the run; "
-                             "the first of oracle, pot, quantile for ranks and plots)")
+                             "the first of oracle, pot, quantile, alert-budget for ranks and "
+                             "plots)")
     parser.add_argument("--quiet", action="store_true", help="print nothing; only write files")
     parser.set_defaults(func=run)
 

@@ -141,8 +141,12 @@ def execute(
 
 
 def print_summary(out: Path, summary: RunSummary) -> None:
-    """Print the summary table and the cell counts to stdout, failures to stderr."""
+    """Print the decision summary, the summary table and the cell counts to stdout, failures
+    to stderr."""
     with Store(out) as store:
+        decision = decision_text(store, summary.run_id)
+        if decision:
+            print(decision)
         print(summary_table(store, summary.run_id))
     print(_counts_line(summary))
     for line in _failure_lines(summary):
@@ -155,6 +159,18 @@ def write_outputs(out: Path) -> dict[str, Path]:
     from benchkit.report import write_all
 
     return write_all(out)
+
+
+def decision_text(store: Store, run_id: int) -> str:
+    """The decision summary tables of the run (markdown), or "" when it has no realistic
+    strategy or no successful cell."""
+    from benchkit.report.decision import decision_tables
+    from benchkit.report.render import render_tables
+
+    metrics = store.metrics_frame(run_id)
+    if metrics.empty:
+        return ""
+    return render_tables(decision_tables(metrics, store.cells_frame(run_id)), "md")
 
 
 def summary_table(store: Store, run_id: int) -> str:

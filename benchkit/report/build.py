@@ -8,8 +8,10 @@ import numpy as np
 import pandas as pd
 
 from benchkit.errors import DataError
-from benchkit.metrics import f1_curve
+from benchkit.metrics import alert_curve, f1_curve
+from benchkit.metrics.alerts import duration
 from benchkit.report import plots
+from benchkit.report.decision import decision_tables
 from benchkit.report.files import write_text_atomic
 from benchkit.report.html import build_html
 from benchkit.report.render import EXTENSIONS, check_format, render_table
@@ -20,6 +22,7 @@ from benchkit.report.tables import (
     STRATEGIES,
     Table,
     comparison_table,
+    entity_table,
     metric_threshold,
     rank_table,
     robustness_table,
@@ -77,14 +80,16 @@ def build_tables(
     chosen = chosen_threshold(metrics, threshold)
     shown = [threshold] if threshold else _strategies(metrics)
     cached = load_clean_scores(store, cells) if store is not None else None
+    robustness = robustness_table(metrics, metric, chosen)
+    training = training_table(store.training_frame()) if store is not None else None
     return [
         *(comparison_table(metrics, s) for s in shown),
         *(uncertainty_table(cached, s) for s in shown if cached is not None),
         timing_table(cells),
-        *([training_table(store.training_frame())] if store is not None else []),
+        *([training] if training is not None and len(training.rows) else []),  # none empty
         *([sensitivity_table(metrics, varied_variants(spec), metric, chosen)]
           if spec is not None and varied_variants(spec) else []),
-        robustness_table(metrics, metric, chosen),
+        *([robustness] if len(robustness.rows) else []),  # no empty section without a sweep
         rank_table(metrics, metric, chosen),
     ]
 
@@ -108,6 +113,31 @@ def _step_label(spec: dict) -> str:
     return DEMO_STEP if sources == {"demo"} else GENERIC_STEP
 
 
+def cached_step(scores: dict) -> float | None:
+    """The step length saved with a cell's cached scores (None where unknown)."""
+    step = scores.get("step_seconds")
+    return None if step is None or not np.isfinite(float(step)) else float(step)
+
+
+def _merge_gap(spec: dict) -> int:
+    return int(spec.get("thresholds", {}).get("merge_gap", 0))
+
+
+def alert_curves(cached: list[tuple[str, dict]], merge_gap: int) -> tuple[list, str]:
+    """Per variant ``(variant, false alert rate, event recall)`` over every threshold of its
+    cached test scores, and the rate's unit (per day where the step is known for all)."""
+    steps = [cached_step(scores) for _, scores in cached]
+    per = "day" if all(s is not None for s in steps) else "1000-steps"
+    unit = "false alerts per day" if per == "day" else "false alerts per 1,000 steps"
+    out = []
+    for (variant, scores), step in zip(cached, steps, strict=True):
+        labels = np.asarray(scores["labels"])
+        curve = alert_curve(np.asarray(scores["test_scores"]), labels, merge_gap)
+        length = duration(len(labels), step, per)
+        out.append((variant, curve.false_alerts / length, curve.event_recall))
+    return out, unit
+
+
 def build_plots(
     store: Store, metrics: pd.DataFrame, cells: pd.DataFrame, spec: dict, rank: Table,
     metric: str, threshold: str, folder: Path,
@@ -118,10 +148,22 @@ def build_plots(
     by the caller; ``store`` is used only for the cached scores of the traced entity."""
     out = []
     curves = sweep_curves(metrics, metric, threshold)
-    out.append(("noise-curves", f"{metric} versus noise level per detector",
-                plots.plot_noise_curves(curves, metric, folder / "noise-curves.png")))
+    if len(curves):  # no empty section: the noise plot only when the run has a sweep
+        out.append(("noise-curves", f"{metric} versus noise level per detector",
+                    plots.plot_noise_curves(curves, metric, folder / "noise-curves.png")))
+    heat = entity_table(metrics, metric, threshold)
+    if heat.size:
+        out.append(("entity-heatmap", f"{metric} (threshold: {threshold}) per detector and entity",
+                    plots.plot_entity_heatmap(heat, metric, threshold,
+                                              folder / "entity-heatmap.png")))
     entity, picked = _trace_cells(cells)
     cached = [(row.variant, store.load_scores(row.cell_key)) for row in picked.itertuples()]
+    if cached:
+        alerts = alert_curves(cached, _merge_gap(spec))
+        out.append(("alert-curves",
+                    f"Event recall versus {alerts[1]} on {entity}, every threshold (log axis)",
+                    plots.plot_alert_curves(alerts[0], alerts[1], folder / "alert-curves.png",
+                                            entity)))
     step = _step_label(spec)
     out.append(("score-trace", f"Test scores on {entity}, labelled events shaded, thresholds drawn",
                 plots.plot_score_traces(cached, folder / "score-trace.png", entity, step)))
@@ -178,8 +220,9 @@ def write_all(
         metrics, cells, run = store.metrics_frame(), store.cells_frame(), store.latest_run()
         if metrics.empty:
             raise DataError(f"{out}: the latest run has no successful cell to report on")
+        decisions = decision_tables(metrics, cells)
         tables = build_tables(metrics, cells, metric, threshold, store, run["spec"])
-        for table in tables:
+        for table in (*decisions, *tables):
             path = out / "tables" / f"{table.name}.{EXTENSIONS[fmt]}"
             written[f"table:{table.name}"] = write_text_atomic(path, render_table(table, fmt))
         chosen = metric_threshold(metric, chosen_threshold(metrics, threshold))
@@ -193,7 +236,7 @@ def write_all(
         ] if len(failed) else []
         page = build_html(run.get("name") or run["spec"].get("name", "run"), tables, figures,
                           run.get("spec_toml", ""), run.get("environment", {}),
-                          run.get("fingerprints", {}), remarks)
+                          run.get("fingerprints", {}), remarks, summary=decisions)
         written["html"] = write_text_atomic(out / "report.html", page)
         written["scorecard"] = write_scorecard(store, out / "scorecard.json")
     return written

@@ -4,8 +4,9 @@ from __future__ import annotations
 
 ORACLE = (
     "Oracle thresholds peek at the test labels: they show the best a detector could reach with a "
-    "perfectly tuned threshold, not what it reaches when deployed. Compare the pot and quantile "
-    "tables for realistic thresholds."
+    "perfectly tuned threshold, not what it reaches when deployed. This holds for 'oracle' and "
+    "for 'alert-budget-oracle' (best event recall within the alert budget on test). Compare the "
+    "pot, quantile and alert-budget tables for realistic thresholds."
 )
 POINT_ADJUSTED = (
     "Point-adjusted scores overstate: one hit inside an event credits the whole event, so even "

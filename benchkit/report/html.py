@@ -23,6 +23,7 @@ th, td { border: 1px solid #c8c8c8; padding: 0.2rem 0.5rem; text-align: left; }
 th { background: #f0f0f0; }
 .note { font-size: 0.85rem; color: #444; margin: 0.2rem 0; }
 .cautions { border-left: 4px solid #D55E00; background: #fff6ee; padding: 0.4rem 1rem; }
+.decision { border-left: 4px solid #0072B2; background: #f2f8fc; padding: 0.4rem 1rem; }
 pre { background: #f6f6f6; padding: 0.6rem; overflow-x: auto; font-size: 0.85rem; }
 img { max-width: 100%; border: 1px solid #e0e0e0; }
 figure { margin: 1rem 0; }
@@ -53,6 +54,19 @@ def _figure(name: str, caption: str, png: Path) -> str:
     )
 
 
+def _summary_section(summary: Sequence[Table]) -> str:
+    if not summary:
+        text = ("This run has no label-free threshold strategy (pot, quantile or alert-budget), "
+                "so there is no decision summary; the tables below use the oracle threshold.")
+        body = f"<p>{html.escape(text)}</p>"
+    else:
+        body = "".join(render_table(t, "html") for t in summary)
+    return (
+        '<section id="decision-summary" class="decision"><h2>Decision summary</h2>'
+        f"{body}</section>"
+    )
+
+
 def build_html(
     title: str,
     tables: Sequence[Table],
@@ -61,6 +75,7 @@ def build_html(
     environment: Mapping,
     fingerprints: Mapping,
     remarks: Sequence[str] = (),
+    summary: Sequence[Table] = (),
 ) -> str:
     """The report as one HTML document.
 
@@ -71,6 +86,8 @@ def build_html(
     plots : ``(name, caption, png_path)`` triples; the PNG bytes are embedded.
     spec_toml, environment, fingerprints : what the run recorded.
     remarks : extra lines for the top of the report (e.g. failed cells).
+    summary : the decision summary tables, shown first (``id="decision-summary"``), before the
+        cautions and every other table.
     """
     caution_items = "".join(f"<li>{html.escape(c)}</li>" for c in cautions.ALL)
     remark_items = "".join(f"<p>{html.escape(r)}</p>" for r in remarks)
@@ -80,6 +97,7 @@ def build_html(
         f"<title>benchkit report: {html.escape(title)}</title>",
         f"<style>{_STYLE}</style></head><body>",
         f"<h1>benchkit report: {html.escape(title)}</h1>",
+        _summary_section(summary),
         f'<section class="cautions"><h2>Cautions</h2><ul>{caution_items}</ul></section>',
         remark_items,
         "<h2>Tables</h2>",

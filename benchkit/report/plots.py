@@ -36,6 +36,7 @@ THRESHOLD_STYLES = {
     "threshold_oracle_f1": ("oracle (best F1, peeks at labels)", "#D55E00", "--"),
     "threshold_pot": ("POT (train scores)", "#0072B2", "-."),
     "threshold_quantile": ("quantile (train scores)", "#009E73", ":"),
+    "threshold_alert_budget": ("alert budget (train scores)", "#CC79A7", (0, (5, 2, 1, 2))),
 }
 NOISE_UNITS = {
     "additive": "additive noise σ (× channel train std)",
@@ -147,9 +148,10 @@ def trace_figure(traces: Sequence[tuple[str, Mapping]], entity: str, step_label:
     """
     n = max(len(traces), 1)
     height = 1.9 * n + 0.8
-    fig = Figure(figsize=(11.0, height))
-    fig.subplots_adjust(left=0.08, right=0.98, top=1 - 0.35 / height, bottom=0.55 / height,
-                        hspace=0.45)
+    width = 13.0  # the legends sit to the right of each panel, outside the data
+    fig = Figure(figsize=(width, height))
+    fig.subplots_adjust(left=0.8 / width, right=1 - 2.9 / width, top=1 - 0.35 / height,
+                        bottom=0.55 / height, hspace=0.45)
     axes = fig.subplots(n, 1, squeeze=False, sharex=True)[:, 0]
     for ax, (variant, cached) in zip(axes, traces, strict=False):
         scores = np.asarray(cached["test_scores"], dtype=float)
@@ -163,7 +165,7 @@ def trace_figure(traces: Sequence[tuple[str, Mapping]], entity: str, step_label:
         _draw_thresholds(ax, scores, cached)
         ax.set_title(f"{variant} on {entity}", fontsize="medium", loc="left")
         ax.set_ylabel("score\n(higher = more anomalous)", fontsize="small")
-        ax.legend(fontsize="x-small", loc="upper right", ncols=2)
+        ax.legend(fontsize="x-small", loc="upper left", bbox_to_anchor=(1.01, 1.0))
     axes[-1].set_xlabel(step_label)
     if not traces:
         axes[0].text(0.5, 0.5, "no cached scores", ha="center", va="center")
@@ -359,4 +361,91 @@ def sensitivity_figure(curves: pd.DataFrame, metric: str) -> Figure:
     if not panels:
         axes[0].set_axis_on()
         axes[0].text(0.5, 0.5, "this run varies no hyperparameter", ha="center", va="center")
+    return fig
+
+
+def plot_entity_heatmap(table: pd.DataFrame, metric: str, threshold: str, path: Path) -> Path:
+    """Write :func:`heatmap_figure` as a PNG to ``path``."""
+    return _save(heatmap_figure(table, metric, threshold), path)
+
+
+def heatmap_figure(table: pd.DataFrame, metric: str, threshold: str) -> Figure:
+    """Detectors (rows) by entities (columns), each cell the clean ``metric`` averaged over seeds.
+
+    ``table`` is :func:`benchkit.report.tables.entity_table` (rows entities, columns variants).
+    The colour scale is a perceptually uniform one readable in grey; each cell prints its value;
+    missing cells (failed) are blank and say "n/a".
+    """
+    data = table.T  # detectors down, entities across
+    n_rows, n_cols = max(data.shape[0], 1), max(data.shape[1], 1)
+    label_in = 0.15 + CHAR_INCHES * max((len(str(v)) for v in data.index), default=4)
+    width = label_in + 0.75 * n_cols + 1.6
+    height = 0.38 * n_rows + 2.2
+    fig = Figure(figsize=(width, height))
+    fig.subplots_adjust(left=label_in / width, right=1 - 1.3 / width, bottom=1.5 / height,
+                        top=1 - 0.45 / height)
+    ax = fig.subplots()
+    values = data.to_numpy(dtype=float)
+    bounded = any(metric.endswith(b) for b in BOUNDED)
+    finite = values[np.isfinite(values)]
+    lo, hi = (0.0, 1.0) if bounded else ((finite.min(), finite.max()) if finite.size else (0, 1))
+    image = ax.imshow(np.ma.masked_invalid(values), cmap="cividis", vmin=lo, vmax=hi,
+                      aspect="auto")
+    mid = (lo + hi) / 2
+    for (i, j), v in np.ndenumerate(values):
+        text, colour = ("n/a", "#000000") if not np.isfinite(v) else (
+            f"{v:.2f}", "#000000" if v > mid else "#FFFFFF")
+        ax.text(j, i, text, ha="center", va="center", fontsize="x-small", color=colour)
+    ax.set_xticks(range(data.shape[1]), [str(c) for c in data.columns], rotation=60,
+                  ha="right", fontsize="small")
+    ax.set_yticks(range(data.shape[0]), [str(r) for r in data.index], fontsize="small")
+    ax.set_xlabel("entity (dataset/entity)")
+    ax.set_title(f"{metric} per detector and entity (threshold: {threshold})", fontsize="medium")
+    bar = fig.colorbar(image, ax=ax, fraction=0.05, pad=0.02)
+    bar.set_label(metric_axis_label(metric))
+    return fig
+
+
+def plot_alert_curves(
+    curves: Sequence[tuple[str, np.ndarray, np.ndarray]], unit: str, path: Path, entity: str
+) -> Path:
+    """Write :func:`alert_figure` as a PNG to ``path``."""
+    return _save(alert_figure(curves, unit, entity), path)
+
+
+def alert_figure(
+    curves: Sequence[tuple[str, np.ndarray, np.ndarray]], unit: str, entity: str
+) -> Figure:
+    """Event recall against the false alert rate over every threshold, one line per detector.
+
+    ``curves`` holds ``(variant, false alert rate, event recall)`` with thresholds descending.
+    The rate axis is logarithmic; thresholds with no false alert sit on the left edge (marked
+    "0"). The ``random`` detector, when present, is drawn as the reference (dashed grey).
+    """
+    width = 9.5
+    fig = Figure(figsize=(width, 5.0))
+    fig.subplots_adjust(left=0.8 / width, right=1 - 2.6 / width, bottom=0.12, top=0.92)
+    ax = fig.subplots()
+    positive = [r[r > 0] for _, r, _ in curves]
+    floor = min((p.min() for p in positive if p.size), default=1.0) / 2.0
+    for i, (variant, rate, recall) in enumerate(curves):
+        x = np.where(rate > 0, rate, floor)
+        if variant == "random":
+            style = {"color": "#999999", "linestyle": "--"}
+            label = "random (reference)"
+        else:
+            style = series_style(i)
+            style.pop("marker")
+            label = variant
+        ax.plot(x, recall, drawstyle="steps-post", label=label, **style)
+    ax.set_xscale("log")
+    ax.axvline(floor, color="#DDDDDD", linewidth=0.8)
+    ax.text(floor, 1.03, " 0", fontsize="x-small", va="bottom", ha="left", color="#666666")
+    ax.set_ylim(0, 1.08)
+    ax.set_xlabel(f"{unit} on the test part (log scale)")
+    ax.set_ylabel("event recall (0–1)")
+    ax.set_title(f"Event recall versus false alerts on {entity}")
+    ax.grid(alpha=0.3, which="both")
+    if curves:
+        ax.legend(fontsize="small", loc="upper left", bbox_to_anchor=(1.02, 1.0))
     return fig

@@ -27,7 +27,8 @@ CLEAN = "none"
 REFERENCE = "random"
 THRESHOLD_FREE = frozenset({"roc_auc", "pr_auc", "random_pa_f1"})
 LOWER_IS_BETTER = frozenset({"delay_mean", "delay_median"})
-STRATEGIES = ("oracle", "pot", "quantile")
+STRATEGIES = ("oracle", "pot", "quantile", "alert-budget", "alert-budget-oracle")
+PEEKING = frozenset({"oracle", "alert-budget-oracle"})
 DEFAULT_COLUMNS = (
     "f1",
     "pa_f1",
@@ -185,7 +186,7 @@ def comparison_table(
         f"'{EXPECTED_HEADER}' is the expected best PA-F1 of uniformly random scores on the "
         "same labels.",
     )
-    if threshold == "oracle":
+    if threshold in PEEKING:
         notes.append(cautions.ORACLE)
     notes.append(cautions.POINT_ADJUSTED)
     notes.append(cautions.NO_GUARANTEE)

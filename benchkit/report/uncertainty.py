@@ -31,6 +31,10 @@ _THRESHOLD_KEYS = {
     ("pot", "point"): "threshold_pot",
     ("quantile", None): "threshold_quantile",
     ("quantile", "point"): "threshold_quantile",
+    ("alert-budget", None): "threshold_alert_budget",
+    ("alert-budget", "point"): "threshold_alert_budget",
+    ("alert-budget-oracle", None): "threshold_alert_budget_oracle",
+    ("alert-budget-oracle", "point"): "threshold_alert_budget_oracle",
 }
 
 
@@ -136,7 +140,7 @@ def uncertainty_table(
     ]
     if order and REFERENCE not in order:
         notes.append("This run has no 'random' reference detector; add it to the spec.")
-    if threshold == "oracle":
+    if threshold in ("oracle", "alert-budget-oracle"):
         notes.append(cautions.ORACLE)
     notes.append(cautions.POINT_ADJUSTED)
     return Table(

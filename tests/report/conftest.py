@@ -18,7 +18,7 @@ seeds = [0, 1]
 workers = 2
 
 [thresholds]
-strategies = ["oracle", "pot", "quantile"]
+strategies = ["oracle", "pot", "quantile", "alert-budget"]
 
 [[datasets]]
 source = "demo"

@@ -77,8 +77,6 @@ def test_full_page_screenshot_covers_the_whole_page(page):
     assert height == pytest.approx(page.facts["scrollHeight"], abs=2)
 
 
-@pytest.mark.skip(reason=f"report.html has no element id={SUMMARY_ID!r} yet: the decision "
-                         "summary of the operator's-view issue has not landed")
 def test_decision_summary_is_visible_in_the_first_screen(page):
     probe = page.facts["probe"]
     assert probe is not None, f"no element id={SUMMARY_ID!r} in report.html"

@@ -22,7 +22,9 @@ from benchkit.store import Store
 from .mdparse import number, pipe_tables
 
 THRESHOLD_KEY = {"oracle": ("threshold_oracle_f1", "threshold_oracle_pa_f1"),
-                 "pot": ("threshold_pot",) * 2, "quantile": ("threshold_quantile",) * 2}
+                 "pot": ("threshold_pot",) * 2, "quantile": ("threshold_quantile",) * 2,
+                 "alert-budget": ("threshold_alert_budget",) * 2,
+                 "alert-budget-oracle": ("threshold_alert_budget_oracle",) * 2}
 
 
 def _point_adjusted(pred: np.ndarray, labels: np.ndarray) -> np.ndarray:
