@@ -6,7 +6,7 @@ Prints, for a 20,000 x 38 train series at the default window and hidden sizes:
    of ``batch_size``, Adam with gradient clipping) of ``factorized-vae``, ``lstm-vae`` and a
    minimal reference written here, a bidirectional LSTM autoencoder of the same hidden size and
    window; the medians of interleaved repeats and their ratios to the reference, against the
-   targets (factorized-vae <= 3x, lstm-vae <= 1.5x);
+   targets (factorized-vae <= 2.5x, lstm-vae <= 1.5x);
 2. scoring throughput in points per second;
 3. peak resident memory while scoring 100,000 and 1,000,000 steps of 38 channels, each in a
    fresh process (so the two peaks are comparable): chunked scoring keeps the extra memory
@@ -45,7 +45,7 @@ from detectors._torch import (  # noqa: E402
 )
 
 N_CHANNELS = 38
-TARGET_RATIO = {"factorized-vae": 3.0, "lstm-vae": 1.5}
+TARGET_RATIO = {"factorized-vae": 2.5, "lstm-vae": 1.5}
 
 
 class BidirectionalLstmAutoencoder(nn.Module):

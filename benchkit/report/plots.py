@@ -15,6 +15,7 @@ import numpy as np
 import pandas as pd
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
+from matplotlib.ticker import MaxNLocator
 
 from benchkit.report.files import write_bytes_atomic
 from benchkit.stats import tied_groups
@@ -302,6 +303,7 @@ def training_figure(curves: pd.DataFrame) -> Figure:
                 ax.plot(x[best], val[best], marker="x", color=c, markersize=6)
         ax.set_title(variant, fontsize="medium", loc="left")
         ax.set_xlabel("epoch (from 0)")
+        ax.xaxis.set_major_locator(MaxNLocator(integer=True))
         ax.set_ylabel("loss (negative ELBO per window)", fontsize="small")
         ax.grid(alpha=0.3)
     for ax in axes[len(variants):]:

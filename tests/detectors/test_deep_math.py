@@ -116,3 +116,40 @@ def test_validation_is_the_train_tail_or_nothing() -> None:
     assert len(val) == 30 and val[0, 0] == 170.0 and len(fit) == 170
     fit, val = split_train(train, window=40, fraction=0.15)  # 30 tail steps hold no window
     assert len(val) == 0 and len(fit) == 200
+
+
+def test_factorized_vae_loss_equals_its_definition_written_with_torch_distributions() -> None:
+    """Pins what one training step of the factorized VAE computes (any speed-up must keep it).
+
+    reference: the loss of the module docstring, NLL + beta * (KL(q(s) || N(0, I)) + sum_t
+    KL(q(z_t) || p(z_t | z_<t))), composed here from torch.distributions.Normal's log_prob and
+    kl_divergence, with the model's own layers and the same random draws.
+    """
+    from detectors.factorized_vae import FactorizedSequenceVae
+
+    torch.manual_seed(3)
+    model = FactorizedSequenceVae(5, 8, static_size=3, dynamic_size=2, learned_prior=True)
+    x = torch.randn(4, 6, 5)
+    beta = 0.7
+    got = model.negative_elbo(x, beta, torch.Generator().manual_seed(11))
+
+    g = torch.Generator().manual_seed(11)
+    normal, kl = torch.distributions.Normal, torch.distributions.kl_divergence
+    _, (h, _) = model.static_rnn(x)
+    mean_s, logvar_s = model.static_head(torch.cat([h[0], h[1]], dim=-1))
+    s = mean_s + torch.exp(0.5 * logvar_s) * torch.randn(mean_s.shape, generator=g)
+    q_s = normal(mean_s, torch.exp(0.5 * logvar_s))
+    kl_s = kl(q_s, normal(torch.zeros_like(mean_s), torch.ones_like(mean_s))).sum(1)
+    h_z, _ = model.dynamic_rnn(torch.cat([x, s[:, None].expand(-1, 6, -1)], dim=-1))
+    mean_z, logvar_z = model.dynamic_head(h_z)
+    z = mean_z + torch.exp(0.5 * logvar_z) * torch.randn(mean_z.shape, generator=g)
+    h_p, _ = model.prior_rnn(torch.cat([torch.zeros_like(z[:, :1]), z[:, :-1]], dim=1))
+    mean_p, logvar_p = model.prior_head(h_p)
+    kl_z = kl(normal(mean_z, torch.exp(0.5 * logvar_z)),
+              normal(mean_p, torch.exp(0.5 * logvar_p))).sum((1, 2))  # fmt: skip
+    mean_x, logvar_x = model.output_head(
+        model.decoder(torch.cat([s[:, None].expand(-1, 6, -1), z], dim=-1))
+    )
+    nll = -normal(mean_x, torch.exp(0.5 * logvar_x)).log_prob(x).sum((1, 2))
+    expected = nll + beta * (kl_s + kl_z)
+    torch.testing.assert_close(got, expected, rtol=1e-5, atol=1e-4)
