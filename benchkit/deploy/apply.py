@@ -93,7 +93,7 @@ def apply_batch(bundle: Bundle, raw: np.ndarray, writer: LineWriter, update: str
     for i in range(scores.size):  # formatting output lines, one per row
         names = None
         if attributions is not None and alerts[i]:
-            names = top_culprits(attributions[i], bundle.channels, top)
+            names = top_culprits(attributions[i], bundle.detector_channels, top)
         writer.row(i, scores[i], thresholds[i], bool(alerts[i]), names)
     return int(np.count_nonzero(alerts))
 
@@ -126,8 +126,8 @@ def apply_follow(bundle: Bundle, lines: Iterable[str], source: str, writer: Line
         names = None
         if alert and writer.culprits:
             attribution = stream.attribution()
-            names = top_culprits(attribution, bundle.channels, top) if attribution is not None \
-                else None
+            if attribution is not None:
+                names = top_culprits(attribution, bundle.detector_channels, top)
         writer.row(step, score, theta, alert, names)
         alerts += alert
     return alerts

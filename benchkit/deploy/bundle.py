@@ -100,6 +100,29 @@ class Bundle:
     def threshold(self) -> dict[str, Any]:
         return self.manifest["threshold"]
 
+    @property
+    def rule(self) -> dict[str, Any]:
+        """The run's ``constant_channels`` rule (``mode``, and ``kept`` or ``low``/``high``)."""
+        return self.manifest.get("constant_channels", {"mode": "keep"})
+
+    @property
+    def detector_channels(self) -> tuple[str, ...]:
+        """The KPIs the detector sees (all of them unless the rule drops some)."""
+        if self.rule["mode"] == "drop":
+            return tuple(self.channels[i] for i in self.rule["kept"])
+        return self.channels
+
+    def prepare(self, raw: np.ndarray, context: bool = False) -> np.ndarray:
+        """Raw rows as the detector sees them: scaled, then the constant-channel rule applied
+        as the protocol applies it (``clip`` bounds new rows only, never train context)."""
+        scaled = self.scaler.transform(raw)
+        mode = self.rule["mode"]
+        if mode == "drop":
+            return scaled[:, np.asarray(self.rule["kept"], dtype=np.int64)]
+        if mode == "clip" and not context:
+            return np.clip(scaled, np.asarray(self.rule["low"]), np.asarray(self.rule["high"]))
+        return scaled
+
 
 def _read_manifest(folder: Path) -> dict[str, Any]:
     if not folder.is_dir():

@@ -32,6 +32,7 @@ from benchkit.data.model import Entity
 from benchkit.deploy.bundle import (
     BUNDLE_FORMAT,
     CONTEXT_FILE,
+    Bundle,
     model_file_name,
     seal,
     torch_version,
@@ -49,7 +50,7 @@ from benchkit.thresholds import (
     pot_threshold,
     quantile_threshold,
 )
-from benchkit.windows import Scaler
+from benchkit.windows import Scaler, handle_constant_channels
 
 THRESHOLDS = ("pot", "quantile", "alert-budget")
 
@@ -182,6 +183,19 @@ def _threshold(strategy: str, spec: ExperimentSpec, cached: dict[str, Any],
     return {"strategy": strategy, "value": value, "calibration": detail}
 
 
+def constant_rule(mode: str, scaled_train: np.ndarray) -> dict[str, Any]:
+    """The run's ``constant_channels`` rule as data a bundle can apply to new rows: the kept
+    channel indices (``drop``) or the scaled train range each KPI is clipped into (``clip``)."""
+    rule: dict[str, Any] = {"mode": mode}
+    if mode == "drop":
+        _, _, kept = handle_constant_channels(scaled_train, scaled_train[:1], mode)
+        rule["kept"] = [int(i) for i in kept]
+    elif mode == "clip":
+        rule["low"] = [float(v) for v in scaled_train.min(axis=0)]
+        rule["high"] = [float(v) for v in scaled_train.max(axis=0)]
+    return rule
+
+
 def _numerics() -> Any:
     """The numeric environment (``benchkit.numerics.describe()`` where it exists)."""
     try:
@@ -273,11 +287,6 @@ def export_model(
         spec = parse_spec(run["spec"], f"{out}: run spec")
         cell = _find_cell(store, variant, entity, seed, dataset)
         cached = store.load_scores(cell["cell_key"])
-    if spec.constant_channels != "keep":
-        raise BenchkitInputError(
-            f"--variant {variant}: the run used constant_channels = {spec.constant_channels!r}; "
-            "bundles carry a scaler only, so export-model supports constant_channels = \"keep\""
-        )
     cls = registry.get(cell["detector"])
     if not has_persistence(cls):
         raise BenchkitInputError(
@@ -300,9 +309,15 @@ def export_model(
         scaler = Scaler(cell["scaling"]).fit(ent.train)
         warmup = int(cached["warmup"])
         context = np.ascontiguousarray(ent.train[ent.train.shape[0] - warmup :], np.float64)
-        detector = cls.load(model_path)
-        scaled_context = scaler.transform(context)
-        scaled_test = scaler.transform(ent.test)
+        rule = constant_rule(spec.constant_channels, scaler.transform(ent.train))
+        calib = calibration_scores(cached["train_scores"], warmup)
+        # the bundle as apply will read it, to check apply's own path on the test part
+        probe = Bundle(staging, {"entity": {"channels": list(ent.channels)},
+                                 "detector": {"warmup": warmup}, "constant_channels": rule},
+                       cls.load(model_path), scaler, context, calib)  # fmt: skip
+        detector = probe.detector
+        scaled_context = probe.prepare(context, context=True)
+        scaled_test = probe.prepare(ent.test)
         applied = batch_scores(detector, scaled_context, scaled_test)
         if not same_bits(applied, cached["test_scores"]):
             raise NotReproduced(
@@ -312,10 +327,10 @@ def export_model(
         series = np.vstack([scaled_context, scaled_test])
         full = np.concatenate([np.full(warmup, -np.inf), applied])
         agreement = stream_agreement(detector, series, full, warmup)
-        calib = calibration_scores(cached["train_scores"], warmup)
         np.savez(staging / CONTEXT_FILE, context=context, calibration=calib)
-        seal(staging, _manifest(spec, cell, data, ent, detector, chosen, run, scaler, cached,
-                                agreement))  # fmt: skip
+        manifest = _manifest(spec, cell, data, ent, detector, chosen, run, scaler, cached,
+                             agreement)  # fmt: skip
+        seal(staging, {**manifest, "constant_channels": rule})
         os.replace(staging, target)
     except BaseException:
         shutil.rmtree(staging, ignore_errors=True)

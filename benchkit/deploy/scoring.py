@@ -98,13 +98,13 @@ class BatchScorer:
 
     def __init__(self, bundle: Bundle) -> None:
         self.bundle = bundle
-        self.context = bundle.scaler.transform(bundle.context)
+        self.context = bundle.prepare(bundle.context, context=True)
 
     def run(
         self, raw: np.ndarray, update: str = "fixed", depth: int = 0
     ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """``(scores, thresholds, alerts)`` of ``raw`` ``(n, d)`` rows."""
-        scores = batch_scores(self.bundle.detector, self.context, self.bundle.scaler.transform(raw))
+        scores = batch_scores(self.bundle.detector, self.context, self.bundle.prepare(raw))
         state = thresholder(self.bundle, update, depth)
         if state is None:
             theta = np.full(scores.size, float(self.bundle.threshold["value"]))
@@ -117,7 +117,7 @@ class BatchScorer:
         attribute = getattr(self.bundle.detector, "attribute", None)
         if attribute is None:
             return None
-        series = np.vstack([self.context, self.bundle.scaler.transform(raw)])
+        series = np.vstack([self.context, self.bundle.prepare(raw)])
         return np.asarray(attribute(series))[self.context.shape[0] :]
 
 
@@ -127,14 +127,14 @@ class StreamScorer:
     def __init__(self, bundle: Bundle, update: str = "fixed", depth: int = 0) -> None:
         self.bundle = bundle
         self.rows: deque[np.ndarray] = deque(maxlen=bundle.warmup + 1)
-        self.rows.extend(bundle.scaler.transform(bundle.context))
+        self.rows.extend(bundle.prepare(bundle.context, context=True))
         self.state = thresholder(bundle, update, depth)
         self.fixed = float(bundle.threshold["value"])
         self.step = 0
 
     def push(self, raw_row: np.ndarray) -> tuple[int, float, float, bool]:
         """Score one raw row: ``(step, score, threshold, alert)``."""
-        self.rows.append(self.bundle.scaler.transform(raw_row[None, :])[0])
+        self.rows.append(self.bundle.prepare(raw_row[None, :])[0])
         score = window_score(self.bundle.detector, np.asarray(self.rows))
         if not np.isfinite(score):
             raise NonFiniteScore(f"the detector gave a non-finite score at step {self.step}")
