@@ -3,6 +3,7 @@ release, then ``benchkit verify`` on its own scorecard; and the committed result
 
 from __future__ import annotations
 
+import importlib.util
 import json
 import tomllib
 
@@ -82,3 +83,25 @@ def test_committed_public_scorecard_digest_is_valid():
     assert {c["status"] for c in cells} == {"ok"}
     assert {c["dataset"] for c in cells} == {"server-machines", "app-servers"}
     assert {c["detector"] for c in cells} == builtin_names()
+
+
+@pytest.mark.skipif(not COMMITTED.is_file(), reason=f"{COMMITTED} is not committed yet")
+def test_readme_section_matches_the_committed_tables():
+    # the README's public-results block is what benchmarks/public_run.py writes from the
+    # committed per-dataset POT tables and the scorecard's entities (no hand-edited numbers)
+    module_spec = importlib.util.spec_from_file_location(
+        "public_run", REPO / "benchmarks" / "public_run.py"
+    )
+    public_run = importlib.util.module_from_spec(module_spec)
+    module_spec.loader.exec_module(public_run)
+    card = json.loads(COMMITTED.read_text(encoding="utf-8"))
+    entities: dict[str, set] = {}
+    for cell in card["cells"].values():
+        entities.setdefault(cell["dataset"], set()).add(cell["entity"])
+    folder = COMMITTED.parent / "tables" / "by-dataset"
+    texts = {
+        d: {"pot": (folder / f"{d}-comparison-pot.md").read_text(encoding="utf-8")}
+        for d in sorted(entities)
+    }
+    block = public_run.readme_block(texts, {d: sorted(e) for d, e in entities.items()})
+    assert block in (REPO / "README.md").read_text(encoding="utf-8")
