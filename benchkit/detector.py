@@ -8,6 +8,12 @@ A detector is a class with declared metadata (``name``, ``description``, ``param
 * ``score(series)`` returns one float64 per step, higher = more anomalous, causal
   (the score at t uses only points <= t).
 
+Optionally, a detector whose class sets ``attributes = True`` implements
+``attribute(series) -> (n, d)`` float64: each channel's contribution to the score at each step,
+higher = more to blame, with the alignment, causality and warm-up rows (all
+:data:`WARMUP_SCORE`) of ``score``. The protocol uses it to check whether the channels a
+detector blames are the labelled culprit KPIs (HitRate@P%, NDCG@P%).
+
 The first ``warmup`` steps of a scored series (before the first full window) get
 :data:`WARMUP_SCORE` (``-inf``): no threshold ``score >= theta`` with a finite theta can turn
 them into a detection. The protocol gives every detector ``warmup`` steps of context from the
@@ -108,6 +114,8 @@ class Detector:
     description: ClassVar[str] = ""
     params: ClassVar[tuple[Param, ...]] = ()
     needs_torch: ClassVar[bool] = False
+    attributes: ClassVar[bool] = False
+    """True when :meth:`attribute` gives per-channel contributions (see the module docstring)."""
 
     def __init__(self, **params: Any) -> None:
         declared = {p.name: p for p in self.params}
@@ -169,6 +177,11 @@ class Detector:
 
     def score(self, series: np.ndarray) -> np.ndarray:  # pragma: no cover - interface
         raise NotImplementedError
+
+    def attribute(self, series: np.ndarray) -> np.ndarray:
+        """Per-channel contributions ``(n, d)`` to the score of each step (only when
+        ``attributes`` is True); warm-up rows hold :data:`WARMUP_SCORE`."""
+        raise NotImplementedError(f"{self.name or type(self).__name__}: no attribution")
 
     def __repr__(self) -> str:
         args = ", ".join(f"{k}={v!r}" for k, v in self.get_params().items())

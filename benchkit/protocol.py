@@ -11,9 +11,13 @@ The steps, in order (:func:`run_cell`):
    real score from ``warmup`` steps of context; the context scores are dropped (timed:
    ``score_seconds`` and ``points_per_second`` for the test part);
 5. check the scores (1-D, numeric, right length, finite after warm-up); bad output fails the cell;
-6. :func:`evaluate`: thresholds (oracle on the test labels; POT, a quantile and an alert budget
+6. when the detector declares attributions and the entity's events name culprit KPIs:
+   ``attribute`` on the same context + test series (timed apart: ``attribute_seconds``),
+   checked like the scores, kept only at steps inside events with culprits;
+7. :func:`evaluate`: thresholds (oracle on the test labels; POT, a quantile and an alert budget
    calibrated on the train scores after their warm-up) and the metric set with the alert metrics
-   for each, plus threshold-free metrics.
+   for each, plus threshold-free metrics, plus diagnosis (HitRate@P%, NDCG@P%) and per-kind
+   event recall where events carry metadata (see :mod:`benchkit.diagnosis`).
 
 Peak memory (``peak_memory_mb``) is the high-water mark of the worker's resident set size during
 the cell minus its size when the cell began, so it covers numpy and torch allocations alike. On
@@ -36,6 +40,7 @@ import numpy as np
 from benchkit import metrics as _metrics
 from benchkit import registry
 from benchkit.data.model import Entity
+from benchkit.diagnosis import EventData, diagnosis_values, strategy_thresholds
 from benchkit.metrics.alerts import best_recall_within, duration
 from benchkit.noise import Perturbation, apply_perturbation
 from benchkit.spec import ThresholdSpec, metric_options
@@ -152,6 +157,26 @@ class BadScores(Exception):
     """A detector returned scores that break the contract (shape, dtype, non-finite)."""
 
 
+def check_attributions(raw: Any, n_steps: int, n_channels: int, warmup: int) -> np.ndarray:
+    """Return ``raw`` as float64 ``(n_steps, n_channels)`` or raise BadScores (rows ``>=
+    warmup`` must be finite)."""
+    arr = np.asarray(raw)
+    if arr.dtype.kind not in "fiu":
+        raise BadScores(f"attribute: values of dtype {arr.dtype}; expected float64")
+    if arr.shape != (n_steps, n_channels):
+        raise BadScores(
+            f"attribute: values of shape {arr.shape}; expected ({n_steps}, {n_channels})"
+        )
+    arr = arr.astype(np.float64, copy=False)
+    bad = np.argwhere(~np.isfinite(arr[warmup:]))
+    if bad.size:
+        raise BadScores(
+            f"attribute: {len(bad)} non-finite value(s) after the warm-up of {warmup} steps "
+            f"(first at step {bad[0][0] + warmup}, channel {bad[0][1]})"
+        )
+    return arr
+
+
 def check_scores(raw: Any, n_steps: int, warmup: int, what: str) -> np.ndarray:
     """Return ``raw`` as float64 ``(n_steps,)`` or raise BadScores with a clear message.
 
@@ -180,8 +205,12 @@ def evaluate(
     warmup: int,
     evaluation: Evaluation,
     step_seconds: float | None = None,
+    events: EventData | None = None,
 ) -> tuple[dict[tuple[str, str], float], dict[str, float]]:
     """Metrics of one cell's scores.
+
+    ``events`` (culprits, kinds, attributions) adds the diagnosis and per-kind metrics of
+    :func:`benchkit.diagnosis.diagnosis_values` for every strategy.
 
     Returns
     -------
@@ -241,6 +270,9 @@ def evaluate(
     out[(THRESHOLD_FREE, "roc_auc")] = float(_metrics.roc_auc(test_scores, labels))
     out[(THRESHOLD_FREE, "pr_auc")] = float(_metrics.pr_auc(test_scores, labels))
     out[(THRESHOLD_FREE, "random_pa_f1")] = float(_metrics.random_pa_f1(labels))
+    if events is not None:
+        thresholds = strategy_thresholds(cfg.strategies, used)
+        out.update(diagnosis_values(test_scores, labels, thresholds, events, options.diagnosis_p))
     return out, used
 
 
@@ -260,6 +292,7 @@ def run_cell(task: CellTask) -> CellResult:
         metrics, used = evaluate(
             s["test_scores"], s["train_scores"], s["labels"], int(s["warmup"]), task.evaluation,
             step,
+            EventData.from_arrays(s),
         )
         return CellResult(
             task.key,
@@ -277,7 +310,8 @@ def run_cell(task: CellTask) -> CellResult:
     )
     scaler = Scaler(task.scaling).fit(train)
     train, test = scaler.transform(train), scaler.transform(test)
-    train, test, _ = handle_constant_channels(train, test, task.constant_channels)
+    n_channels = train.shape[1]
+    train, test, kept = handle_constant_channels(train, test, task.constant_channels)
     detector = registry.create(task.detector, **task.params)
     t0 = time.perf_counter()
     detector.fit(train)
@@ -292,8 +326,21 @@ def run_cell(task: CellTask) -> CellResult:
     score_seconds = time.perf_counter() - t0
     test_scores = check_scores(raw, warmup + test.shape[0], warmup, "test")[warmup:]
     labels = np.asarray(entity.labels, dtype=np.int8)
+    events = EventData.from_entity(entity)
+    attribute_seconds = None
+    if events is not None and events.has_culprits and detector.attributes:
+        t0 = time.perf_counter()
+        raw_attr = detector.attribute(np.vstack([context, test]) if warmup else test)
+        attribute_seconds = time.perf_counter() - t0
+        n_rows = warmup + test.shape[0]
+        values = check_attributions(raw_attr, n_rows, test.shape[1], warmup)[warmup:]
+        steps = events.culprit_steps(labels)
+        # culprits name the entity's channels: a channel dropped before the detector ranks last
+        full = np.full((steps.size, n_channels), -np.inf)
+        full[:, kept] = values[steps]
+        events = events.with_attributions(full, steps)
     metrics, used = evaluate(
-        test_scores, train_scores, labels, warmup, task.evaluation, entity.step_seconds
+        test_scores, train_scores, labels, warmup, task.evaluation, entity.step_seconds, events
     )
     if task.save_to is not None:
         detector.save(task.save_to)
@@ -304,6 +351,7 @@ def run_cell(task: CellTask) -> CellResult:
         "labels": labels,
         "warmup": np.array(warmup),
         "step_seconds": np.array(np.nan if entity.step_seconds is None else entity.step_seconds),
+        **(events.arrays() if events is not None else {}),
     }
     return CellResult(
         task.key,
@@ -314,6 +362,7 @@ def run_cell(task: CellTask) -> CellResult:
         measures={
             "fit_seconds": fit_seconds,
             "score_seconds": score_seconds,
+            "attribute_seconds": attribute_seconds,
             "points_per_second": test.shape[0] / score_seconds if score_seconds > 0 else None,
             "n_train": int(train.shape[0]),
             "n_test": int(test.shape[0]),

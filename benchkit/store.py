@@ -73,6 +73,7 @@ CREATE TABLE IF NOT EXISTS cells (
     error TEXT,
     fit_seconds REAL,
     score_seconds REAL,
+    attribute_seconds REAL,
     points_per_second REAL,
     peak_memory_mb REAL,
     n_train INTEGER,
@@ -112,6 +113,7 @@ _CELL_ID = ("dataset", "entity", "seed", "perturbation", "noise_kind", "noise_le
 MEASURE_COLUMNS = (
     "fit_seconds",
     "score_seconds",
+    "attribute_seconds",
     "points_per_second",
     "peak_memory_mb",
     "n_train",
@@ -203,6 +205,13 @@ class Store:
                 "INSERT OR IGNORE INTO meta (key, value) VALUES ('schema_version', ?)",
                 (SCHEMA_VERSION,),
             )
+        self._add_missing_columns()
+
+    def _add_missing_columns(self) -> None:
+        """Columns added after a results folder was written get NULL in its old rows."""
+        have = {row[1] for row in self._conn.execute("PRAGMA table_info(cells)")}
+        if have and "attribute_seconds" not in have:
+            self._conn.execute("ALTER TABLE cells ADD COLUMN attribute_seconds REAL")
 
     # -- plumbing ----------------------------------------------------------------------------
     def close(self) -> None:

@@ -11,6 +11,9 @@ always run.
 ``persistence`` saves the fitted reference detector with ``save(path)``, reads it back with
 ``Cls.load(path)`` and requires bit-identical scores; a detector without ``save``/``load`` has
 it skipped (``benchkit export-model`` refuses such a detector with a message saying so).
+A detector that declares ``attributes = True`` has its ``attribute`` output checked like its
+scores (``attribution`` check): shape ``(n, d)``, float64, warm-up rows :data:`WARMUP_SCORE`,
+finite afterwards, causal and deterministic. Other detectors skip that check.
 """
 
 from __future__ import annotations
@@ -271,6 +274,38 @@ def _check_determinism(ctx: _Context) -> str:
     return "same parameters, bit-identical scores"
 
 
+def _check_attribution(ctx: _Context) -> str:
+    if not getattr(ctx.cls, "attributes", False):
+        raise _Skip("not declared (attributes = False)")
+    det, _, _ = ctx.reference()
+    n, d, warm = ctx.n_test, ctx._test.shape[1], det.warmup
+    test = ctx.test
+    values = det.attribute(test)
+    kind = type(values).__name__
+    _require(isinstance(values, np.ndarray), f"attribute returned {kind}, not an ndarray")
+    _require(values.shape == (n, d), f"attribute shape {values.shape}, expected ({n}, {d})")
+    _require(values.dtype == np.float64, f"attribute dtype {values.dtype}, expected float64")
+    _require(bool(np.all(values[:warm] == WARMUP_SCORE)),
+             "a warm-up row of attribute is not WARMUP_SCORE")
+    bad = np.argwhere(~np.isfinite(values[warm:]))
+    _require(bad.size == 0, f"non-finite attribution at step {warm + bad[0][0]}, channel "
+             f"{bad[0][1]}" if bad.size else "")
+    _require(np.array_equal(test, ctx._test), "attribute modified the series")
+    _require(np.array_equal(det.attribute(ctx.test), values),
+             "attributing the same series twice gave different values")
+    fresh, _ = ctx.fit_score(ctx.train, ctx.test)
+    _require(np.array_equal(fresh.attribute(ctx.test), values),
+             "a second instance with the same parameters attributes differently")
+    cut = warm + (n - warm) // 2
+    changed = ctx.test
+    changed[cut:] = 3.0 + 5.0 * np.random.default_rng(6).normal(size=changed[cut:].shape)
+    again = det.attribute(changed)
+    if not np.array_equal(again[:cut], values[:cut]):
+        step = int(np.argmax(~np.all(again[:cut] == values[:cut], axis=1)))
+        raise _Fail(f"changing steps >= {cut} changed the attribution at step {step}")
+    return f"({n}, {d}), causal and deterministic"
+
+
 def _check_refit(ctx: _Context) -> str:
     _, scores, _ = ctx.reference()
     det = ctx.new()
@@ -368,6 +403,7 @@ CHECKS: tuple[tuple[str, Callable[[_Context], str], bool], ...] = (
     ("score-output", _check_output_check, True),
     ("causality", _check_causality, True),
     ("determinism", _check_determinism, True),
+    ("attribution", _check_attribution, True),
     ("refit", _check_refit, False),
     ("no-mutation", _check_no_mutation, True),
     ("single-channel", _check_single_channel, False),

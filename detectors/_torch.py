@@ -11,6 +11,8 @@ A model plugged into :class:`TorchWindowDetector` is a ``torch.nn.Module`` with 
 * ``last_step_nll(x, samples, generator) -> (B,)``: the negative log-likelihood of each window's
   last point; ``samples == 0`` decodes the posterior mean, otherwise it averages over ``samples``
   draws (the same draws for every window, so a score depends on its own window only).
+  A model that also takes ``per_channel=True`` and then returns each channel's term ``(B, D)``
+  (the terms sum to the score) lets its detector set ``attributes = True``.
 """
 
 from __future__ import annotations
@@ -341,15 +343,17 @@ def score_last_points(
     window: int,
     nll: Callable[[torch.Tensor], torch.Tensor],
     chunk: int = SCORE_CHUNK,
+    channels: int | None = None,
 ) -> np.ndarray:
     """Per-step scores ``nll(window ending at t)``, chunk by chunk (call under ``no_grad``).
 
     Steps before the first full window get :data:`WARMUP_SCORE`. Only ``chunk`` windows exist
     as a float32 copy at any time, so memory does not grow with the series length beyond the
-    (n,) result.
+    (n,) result. With ``channels`` set, ``nll`` gives ``(B, channels)`` per-channel terms and
+    the result is ``(n, channels)``.
     """
     n = len(series)
-    out = np.full(n, WARMUP_SCORE, dtype=np.float64)
+    out = np.full(n if channels is None else (n, channels), WARMUP_SCORE, dtype=np.float64)
     views = sliding_windows(series, window)
     for start in range(0, len(views), chunk):
         x = window_batch(views, slice(start, start + chunk))
@@ -418,16 +422,29 @@ class TorchWindowDetector(Detector):
 
     def score(self, series: np.ndarray) -> np.ndarray:
         """NLL of the last point of the window ending at each step (``-inf`` in the warm-up)."""
+        return self._last_points(series, per_channel=False)
+
+    def attribute(self, series: np.ndarray) -> np.ndarray:
+        """Each channel's NLL of the last point of the window ending at each step, ``(n, d)``
+        (the terms of :meth:`score`); only for models that take ``per_channel``."""
+        return self._last_points(series, per_channel=True)
+
+    def _last_points(self, series: np.ndarray, per_channel: bool) -> np.ndarray:
         model = self._fitted_model()
         x = check_series(series, "series", self.n_channels_)
+        extra = {"per_channel": True} if per_channel else {}
         with torch_session(self.seed, self.threads), torch.no_grad():
             model.eval()
 
             def last_nll(batch: torch.Tensor) -> torch.Tensor:
                 # a fresh generator per chunk: every window sees the same posterior draws
-                return model.last_step_nll(batch, self.score_samples, torch_generator(self.seed, 4))
+                return model.last_step_nll(
+                    batch, self.score_samples, torch_generator(self.seed, 4), **extra
+                )
 
-            return score_last_points(x, self.window, last_nll)
+            return score_last_points(
+                x, self.window, last_nll, channels=self.n_channels_ if per_channel else None
+            )
 
     def training_record(self) -> dict[str, Any] | None:
         """Per-epoch losses and the stop epoch and reason of the last fit (``None`` unfitted)."""

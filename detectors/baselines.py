@@ -21,6 +21,7 @@ class RandomScores(SavesArrays, Detector):
     description = "uniform random scores from the seed (a floor every method must beat)"
     params = (Param("seed", int, 0, "seed of the score stream", low=0),)
     fitted_state = ("n_channels_",)
+    attributes = True
 
     def fit(self, train: np.ndarray) -> RandomScores:
         self.n_channels_ = check_series(train, "train").shape[1]
@@ -30,6 +31,12 @@ class RandomScores(SavesArrays, Detector):
         series = check_series(series, "series", self.n_channels_)
         # a fresh generator per call: step t always gets the t-th draw of the seed's stream
         return np.random.default_rng(self.seed).random(series.shape[0])
+
+    def attribute(self, series: np.ndarray) -> np.ndarray:
+        """Uniform random attributions from their own stream of the seed: the reference that
+        every attribution must beat (row t is the t-th row of draws, so it is causal)."""
+        series = check_series(series, "series", self.n_channels_)
+        return np.random.default_rng([self.seed, 1]).random(series.shape)
 
 
 _NORMS = {
@@ -49,6 +56,7 @@ class StepChange(SavesArrays, Detector):
         Param("norm", str, "l2", "how channel differences combine", choices=tuple(_NORMS)),
     )
     fitted_state = ("n_channels_",)
+    attributes = True
 
     @property
     def warmup(self) -> int:
@@ -63,4 +71,12 @@ class StepChange(SavesArrays, Detector):
         series = check_series(series, "series", self.n_channels_)
         out = np.full(series.shape[0], WARMUP_SCORE)
         out[1:] = _NORMS[self.norm](np.diff(series, axis=0))
+        return out
+
+    def attribute(self, series: np.ndarray) -> np.ndarray:
+        """Each channel's absolute one-step change ``|x_t - x_{t-1}|`` (every norm ranks the
+        channels alike)."""
+        series = check_series(series, "series", self.n_channels_)
+        out = np.full(series.shape, WARMUP_SCORE)
+        out[1:] = np.abs(np.diff(series, axis=0))
         return out

@@ -81,6 +81,7 @@ class CorrelationBreak(SavesArrays, Detector):
     )
     fitted_state = ("n_channels_", "first_", "second_", "centre_", "spread_", "weight_",
                     "incidence_")  # fmt: skip
+    attributes = True
 
     def fit(self, train: np.ndarray) -> CorrelationBreak:
         train = check_series(train, "train")
@@ -106,26 +107,44 @@ class CorrelationBreak(SavesArrays, Detector):
         self.incidence_ = incidence
         return self
 
+    def _channel_sums(self, series: np.ndarray) -> np.ndarray:
+        """``(n - window + 1, d)``: each channel's w-weighted sum of departures over its pairs
+        (row i: the window ending at step ``i + window - 1``; zeros with a single channel)."""
+        m = series.shape[0] - self.window + 1
+        per_channel = np.zeros((m, self.n_channels_))
+        for start, z in rolling_fisher_z(series, self.window, self.first_, self.second_):
+            stop = start + z.shape[1]
+            dev = np.abs(z - self.centre_[start:stop]) / self.spread_[start:stop]
+            per_channel += np.minimum(dev, self.cap) @ self.incidence_[start:stop]
+        return per_channel
+
+    def _channel_means(self, per_channel: np.ndarray) -> np.ndarray:
+        totals = self.incidence_.sum(axis=0)
+        return per_channel / np.where(totals > 0, totals, 1.0)
+
     def score(self, series: np.ndarray) -> np.ndarray:
         series = check_series(series, "series", self.n_channels_)
         n = series.shape[0]
         out = np.full(n, WARMUP_SCORE)
         if n < self.window:
             return out
-        m = n - self.window + 1
         if self.first_.size == 0:  # a single channel has no pairs
             out[self.window - 1 :] = 0.0
             return out
-        per_channel = np.zeros((m, self.n_channels_))
-        for start, z in rolling_fisher_z(series, self.window, self.first_, self.second_):
-            stop = start + z.shape[1]
-            dev = np.abs(z - self.centre_[start:stop]) / self.spread_[start:stop]
-            per_channel += np.minimum(dev, self.cap) @ self.incidence_[start:stop]
+        per_channel = self._channel_sums(series)
         if self.reduce == "channel-max":
-            totals = self.incidence_.sum(axis=0)
-            out[self.window - 1 :] = (per_channel / np.where(totals > 0, totals, 1.0)).max(axis=1)
+            out[self.window - 1 :] = self._channel_means(per_channel).max(axis=1)
         else:
             # every pair is counted twice in the per-channel sums
             total = 2.0 * self.weight_.sum()
             out[self.window - 1 :] = per_channel.sum(axis=1) / (total if total > 0 else 1.0)
+        return out
+
+    def attribute(self, series: np.ndarray) -> np.ndarray:
+        """Each channel's w-weighted mean departure over its pairs (what ``channel-max`` takes
+        the largest of), for either ``reduce``."""
+        series = check_series(series, "series", self.n_channels_)
+        out = np.full(series.shape, WARMUP_SCORE)
+        if series.shape[0] >= self.window:
+            out[self.window - 1 :] = self._channel_means(self._channel_sums(series))
         return out

@@ -106,21 +106,24 @@ class FactorizedSequenceVae(nn.Module):
         return gaussian_nll(x, mean_x, logvar_x).sum(dim=(1, 2)) + beta * kl
 
     def last_step_nll(
-        self, x: torch.Tensor, samples: int, generator: torch.Generator | None
+        self, x: torch.Tensor, samples: int, generator: torch.Generator | None,
+        per_channel: bool = False,
     ) -> torch.Tensor:
-        """NLL of each window's last point, (B,), from the posterior mean or ``samples`` draws."""
+        """NLL of each window's last point, (B,), from the posterior mean or ``samples`` draws;
+        with ``per_channel`` each channel's term, (B, D)."""
         if samples == 0:
-            return self._last_nll(x, None, None)
+            return self._last_nll(x, None, None, per_channel)
         b = x.shape[0]
-        total = torch.zeros(b, dtype=torch.float64)
+        total = torch.zeros(b, *((x.shape[2],) if per_channel else ()), dtype=torch.float64)
         for _ in range(samples):
             eps_s = torch.randn((1, self.static_size), generator=generator).expand(b, -1)
             eps_z = torch.randn((1, 1, self.dynamic_size), generator=generator).expand(b, 1, -1)
-            total += self._last_nll(x, eps_s, eps_z)
+            total += self._last_nll(x, eps_s, eps_z, per_channel)
         return total / samples
 
     def _last_nll(
-        self, x: torch.Tensor, eps_s: torch.Tensor | None, eps_z: torch.Tensor | None
+        self, x: torch.Tensor, eps_s: torch.Tensor | None, eps_z: torch.Tensor | None,
+        per_channel: bool = False,
     ) -> torch.Tensor:
         s = None
         if self.static_size:
@@ -131,7 +134,8 @@ class FactorizedSequenceVae(nn.Module):
         z = mean_z if eps_z is None else mean_z + torch.exp(0.5 * logvar_z) * eps_z
         mean_x, logvar_x = self.decode(s, z)
         last = x[:, -1:].double()
-        return gaussian_nll(last, mean_x.double(), logvar_x.double()).sum(dim=(1, 2))
+        terms = gaussian_nll(last, mean_x.double(), logvar_x.double())
+        return terms[:, 0] if per_channel else terms.sum(dim=(1, 2))
 
 
 @register
@@ -150,6 +154,7 @@ class FactorizedVaeDetector(TorchWindowDetector):
         Param("prior", str, "learned", "prior on z_t: recurrent p(z_t | z_<t) or N(0, I)",
               choices=("learned", "standard")),
     )
+    attributes = True  # each channel's NLL of the last point
 
     def build_model(self, n_channels: int) -> FactorizedSequenceVae:
         return FactorizedSequenceVae(

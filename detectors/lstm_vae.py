@@ -60,19 +60,23 @@ class LstmSequenceVae(nn.Module):
         return gaussian_nll(x, mean_x, logvar_x).sum(dim=(1, 2)) + beta * kl
 
     def last_step_nll(
-        self, x: torch.Tensor, samples: int, generator: torch.Generator | None
+        self, x: torch.Tensor, samples: int, generator: torch.Generator | None,
+        per_channel: bool = False,
     ) -> torch.Tensor:
-        """NLL of each window's last point, (B,), from the posterior mean or ``samples`` draws."""
+        """NLL of each window's last point, (B,), from the posterior mean or ``samples`` draws;
+        with ``per_channel`` each channel's term, (B, D)."""
         mean_z, logvar_z = self.posterior(x)
         last = x[:, -1].double()
         draws = [None] if samples == 0 else [
             torch.randn((1, self.latent_size), generator=generator) for _ in range(samples)
         ]
-        total = torch.zeros(x.shape[0], dtype=torch.float64)
+        total = torch.zeros(x.shape[0], *(last.shape[1:] if per_channel else ()),
+                            dtype=torch.float64)  # fmt: skip
         for eps in draws:
             z = mean_z if eps is None else mean_z + torch.exp(0.5 * logvar_z) * eps
             mean_x, logvar_x = self.decode(z, x.shape[1])
-            total += gaussian_nll(last, mean_x[:, -1].double(), logvar_x[:, -1].double()).sum(dim=1)
+            terms = gaussian_nll(last, mean_x[:, -1].double(), logvar_x[:, -1].double())
+            total += terms if per_channel else terms.sum(dim=1)
         return total / len(draws)
 
 
@@ -85,6 +89,7 @@ class LstmVaeDetector(TorchWindowDetector):
     params = training_params() + (
         Param("latent_size", int, 8, "units of the latent vector", 1, 1024),
     )
+    attributes = True  # each channel's NLL of the last point
 
     def build_model(self, n_channels: int) -> LstmSequenceVae:
         return LstmSequenceVae(n_channels, self.hidden_size, self.latent_size)

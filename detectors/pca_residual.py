@@ -5,6 +5,11 @@ PCA is fitted on the (already scaled) training points. For a point x with centre
 ``Q = |c - P Pᵀ c|²``; Hotelling's ``T² = Σ_i (p_iᵀ c)² / λ_i`` over the retained components.
 Each step is scored from its own point, so the score is causal with no warm-up.
 
+Attribution (per channel j, summing to the score): for Q, the channel's squared residual
+``(c - P Pᵀ c)_j²``; for T², the contribution ``c_j Σ_a p_ja t_a / λ_a`` (t = Pᵀ c), after
+Westerhuis, Gurden & Smilde (2000) for the variable contributions to T²; ``combined`` adds the two,
+each divided by its limit as in the score.
+
 Control limits (``alpha`` = false-alarm rate):
 * Q: Jackson & Mudholkar (1979), with ``θ_i = Σ_{j>k} λ_j^i`` and ``h0 = 1 - 2θ1θ3 / (3θ2²)``;
   where ``h0 <= 0`` the formula is undefined and Box's (1954) ``g χ²_h`` approximation with
@@ -80,6 +85,7 @@ class PCAResidual(SavesArrays, Detector):
     )
     fitted_state = ("mean_", "eigenvalues_", "n_components_", "loadings_", "n_train_",
                     "q_limit_", "t2_limit_")  # fmt: skip
+    attributes = True
 
     def fit(self, train: np.ndarray) -> PCAResidual:
         train = check_series(train, "train")
@@ -130,6 +136,22 @@ class PCAResidual(SavesArrays, Detector):
         q_lim = self.q_limit_ or 1.0
         t2_lim = self.t2_limit_ or 1.0
         return q / q_lim + t2 / t2_lim
+
+    def attribute(self, series: np.ndarray) -> np.ndarray:
+        """Per-channel shares of the chosen statistic (see the module docstring)."""
+        series = check_series(series, "series", self.mean_.size)
+        centred = series - self.mean_
+        proj = centred @ self.loadings_
+        resid = centred - proj @ self.loadings_.T
+        q_part = resid * resid
+        if self.statistic == "q":
+            return q_part
+        kept = self.eigenvalues_[: self.n_components_]
+        safe = np.where(kept > 0, kept, np.inf)
+        t2_part = centred * ((proj / safe) @ self.loadings_.T)
+        if self.statistic == "t2":
+            return t2_part
+        return q_part / (self.q_limit_ or 1.0) + t2_part / (self.t2_limit_ or 1.0)
 
     def threshold_hint(self, train_scores: np.ndarray) -> float | None:
         """The control limit of the chosen statistic (``None`` for ``combined``)."""

@@ -21,10 +21,15 @@ from typing import Any, ClassVar
 
 import numpy as np
 
-from benchkit.detector import Param
+from benchkit.detector import WARMUP_SCORE, Param, check_series
 from benchkit.errors import DetectorNotFound
 from benchkit.registry import get, register, register_family
-from detectors._features import FeatureModelDetector, derived_seed, window_params
+from detectors._features import (
+    FeatureModelDetector,
+    derived_seed,
+    window_features,
+    window_params,
+)
 
 # constructor arguments the adapter sets itself or that concern thresholds, not scores
 _RESERVED = {"contamination", "n_jobs", "random_state", "verbose", "novelty"}
@@ -83,6 +88,10 @@ class _TailModel:
         return np.sign(a3 - 3.0 * a1 * a2 + 2.0 * a1**3)
 
     def decision_function(self, rows: np.ndarray) -> np.ndarray:
+        return self.outlying(rows).sum(axis=1)
+
+    def outlying(self, rows: np.ndarray) -> np.ndarray:
+        """Per-feature outlying values ``(m, features)``; the score is their sum."""
         n = self.n_
         below = np.empty(rows.shape)
         above = np.empty(rows.shape)
@@ -98,14 +107,28 @@ class _TailModel:
             outlying = np.maximum(u_skew, np.maximum(u_left, u_right))
         else:
             outlying = np.maximum(u_skew, (u_left + u_right) / 2.0)
-        return outlying.sum(axis=1)
+        return outlying
 
 
 class _TailDetector(PyodDetector):
+    """ECOD/COPOD with attributions: a channel's share is the sum of the outlying values of its
+    features (last point, mean, ...), the per-dimension scores both papers propose for
+    explaining a detection (Li et al., 2020 and 2022)."""
+
     combine: ClassVar[str] = "ecod"
+    attributes = True
 
     def _fit_model(self, rows: np.ndarray, rng: np.random.Generator) -> _TailModel:
         return _TailModel(rows, self.combine)
+
+    def attribute(self, series: np.ndarray) -> np.ndarray:
+        series = check_series(series, "series", self.n_channels_)
+        n, d = series.shape
+        out = np.full((n, d), WARMUP_SCORE)
+        if n >= self.window:
+            values = self.model_.outlying(window_features(series, self.window, self.features))
+            out[self.window - 1 :] = values.reshape(values.shape[0], -1, d).sum(axis=1)
+        return out
 
 
 @register

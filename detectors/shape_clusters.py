@@ -4,6 +4,9 @@ Training windows (a random subsample) are clustered with tslearn's ``TimeSeriesK
 (Euclidean metric); a step's score is the Euclidean distance of its causal window to the
 nearest centroid. DTW is not offered: tslearn compiles it on first use, which costs tens of
 seconds per worker process, and its scoring is orders of magnitude slower.
+
+Attribution: the squared distance to the nearest centroid is a sum over channels, so each
+channel's share is its squared distance to that centroid over the window's steps.
 """
 
 from __future__ import annotations
@@ -23,6 +26,9 @@ with warnings.catch_warnings():  # tslearn warns about optional hdf5 support on 
     from tslearn.clustering import TimeSeriesKMeans
 
 
+_SHARE_CHUNK = 2048  # windows per block of per-channel shares
+
+
 def nearest_centroid_distance(windows: np.ndarray, centroids: np.ndarray) -> np.ndarray:
     """Euclidean distance of each window ``(m, w, d)`` to its nearest centroid ``(k, w, d)``."""
     flat = windows.reshape(windows.shape[0], -1)
@@ -33,6 +39,20 @@ def nearest_centroid_distance(windows: np.ndarray, centroids: np.ndarray) -> np.
         + np.einsum("ij,ij->i", cent, cent)[None, :]
     )
     return np.sqrt(np.maximum(sq.min(axis=1), 0.0))
+
+
+def nearest_centroid_shares(windows: np.ndarray, centroids: np.ndarray) -> np.ndarray:
+    """Per channel, the squared distance of each window ``(m, w, d)`` to its nearest centroid
+    (summed over the window's steps): ``(m, d)``, summing to the squared distance."""
+    cent = centroids.reshape(centroids.shape[0], -1)
+    cent_sq = np.einsum("ij,ij->i", cent, cent)
+    out = np.empty((windows.shape[0], windows.shape[2]))
+    for start in range(0, windows.shape[0], _SHARE_CHUNK):  # bounds the (m, w, d) copies
+        part = windows[start : start + _SHARE_CHUNK]
+        sq = cent_sq[None, :] - 2.0 * part.reshape(part.shape[0], -1) @ cent.T
+        diff = part - centroids[np.argmin(sq, axis=1)]  # |x|² is the same for every centroid
+        out[start : start + part.shape[0]] = np.einsum("mwd,mwd->md", diff, diff)
+    return out
 
 
 @register
@@ -50,6 +70,7 @@ class ShapeClusters(SavesArrays, Detector):
         Param("seed", int, 0, "seed of the subsample and of the k-means initialisation", low=0),
     )
     fitted_state = ("n_channels_", "centroids_")
+    attributes = True
 
     def fit(self, train: np.ndarray) -> ShapeClusters:
         train = check_series(train, "train")
@@ -85,4 +106,13 @@ class ShapeClusters(SavesArrays, Detector):
         if series.shape[0] >= self.window:
             windows = sliding_windows(series, self.window)
             out[self.window - 1 :] = nearest_centroid_distance(windows, self.centroids_)
+        return out
+
+    def attribute(self, series: np.ndarray) -> np.ndarray:
+        """Each channel's squared distance to the nearest centroid (see the module docstring)."""
+        series = check_series(series, "series", self.n_channels_)
+        out = np.full(series.shape, WARMUP_SCORE)
+        if series.shape[0] >= self.window:
+            windows = sliding_windows(series, self.window)
+            out[self.window - 1 :] = nearest_centroid_shares(windows, self.centroids_)
         return out

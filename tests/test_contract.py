@@ -57,6 +57,14 @@ class MovingMean(SavesArrays, Detector):
         out[self.window - 1 :] = self.gain * self._values(series).sum(axis=1) + self.jitter_
         return out
 
+    attributes = True
+
+    def attribute(self, series):
+        series = check_series(series, "series", self.n_channels_)
+        out = np.full(series.shape, WARMUP_SCORE)
+        out[self.window - 1 :] = self.gain * self._values(series)
+        return out
+
 
 class BadMetadata(MovingMean):
     params = (Param("window", int, 1, "below its own bound", low=2),) + MovingMean.params[1:]
@@ -176,6 +184,30 @@ class PerStepLoop(MovingMean):
         return out
 
 
+class AttributionPerStepOnly(MovingMean):
+    def attribute(self, series):
+        return super().attribute(series).sum(axis=1)  # (n,) instead of (n, d)
+
+
+class AttributionPeeksAhead(MovingMean):
+    def attribute(self, series):
+        out = super().attribute(series)
+        out[:-1] = np.where(np.isfinite(out[:-1]), out[:-1] + out[1:], out[:-1])
+        return out
+
+
+class AttributionUnseeded(MovingMean):
+    def attribute(self, series):
+        return super().attribute(series) + np.random.default_rng().random()
+
+
+class AttributionWarmupZero(MovingMean):
+    def attribute(self, series):
+        out = super().attribute(series)
+        out[: self.window - 1] = 0.0
+        return out
+
+
 # (broken class, the checks it must fail: exactly these, the rest pass)
 BROKEN = [
     # load validates the stored parameters, and this default fails its own declaration
@@ -194,6 +226,10 @@ BROKEN = [
     (FillsNaN, {"nan-refused"}),
     (NaNTypeError, {"nan-refused"}),
     (LosesJitterOnLoad, {"persistence"}),
+    (AttributionPerStepOnly, {"attribution"}),
+    (AttributionPeeksAhead, {"attribution"}),
+    (AttributionUnseeded, {"attribution"}),
+    (AttributionWarmupZero, {"attribution"}),
 ]
 
 
@@ -253,6 +289,19 @@ def test_a_detector_without_save_and_load_has_persistence_skipped_with_the_reaso
     assert report.passed
 
 
+def test_attribution_is_skipped_when_not_declared_and_failures_say_why():
+    class NoAttribution(MovingMean):
+        attributes = False
+
+    assert run_checks(NoAttribution).status("attribution") == SKIPPED
+    detail = next(r.detail for r in run_checks(AttributionPeeksAhead).results
+                  if r.name == "attribution")
+    assert "changed the attribution at step" in detail
+    shape = next(r.detail for r in run_checks(AttributionPerStepOnly).results
+                 if r.name == "attribution")
+    assert "shape" in shape
+
+
 def test_a_detector_that_cannot_be_built_fails_every_check():
     class Exploding(MovingMean):
         def __init__(self, **params):
@@ -272,7 +321,7 @@ def test_the_kit_is_fast_on_the_reference():
 def test_cli_check_detector_prints_table_and_exit_status(capsys):
     assert main(["check-detector", "test_contract:MovingMean"]) == 0
     out = capsys.readouterr().out
-    assert "causality" in out and "13 passed, 0 failed, 0 skipped" in out
+    assert "causality" in out and "14 passed, 0 failed, 0 skipped" in out
     assert main(["check-detector", "test_contract:NonCausal", "--quick"]) == 1
     out = capsys.readouterr().out
     assert "failed" in out and "4 skipped" in out

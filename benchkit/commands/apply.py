@@ -113,7 +113,7 @@ def main(args: argparse.Namespace) -> int:
     bundle = load_bundle(args.bundle)
     update = _update(args, bundle.threshold["strategy"])
     top = _culprits(args.culprits)
-    attributes = top > 0 and callable(getattr(bundle.detector, "attribute", None))
+    attributes = top > 0 and bool(getattr(bundle.detector, "attributes", False))
     if args.follow:
         check_streamable(bundle)
     is_table = args.data != "-" and Path(args.data).suffix == ".parquet"

@@ -113,10 +113,10 @@ class BatchScorer:
         return scores, theta, alerts
 
     def attributions(self, raw: np.ndarray) -> np.ndarray | None:
-        """Per-step channel attributions, where the detector offers ``attribute``."""
-        attribute = getattr(self.bundle.detector, "attribute", None)
-        if attribute is None:
+        """Per-step channel attributions, where the detector declares ``attributes``."""
+        if not getattr(self.bundle.detector, "attributes", False):
             return None
+        attribute = self.bundle.detector.attribute
         series = np.vstack([self.context, self.bundle.prepare(raw)])
         return np.asarray(attribute(series))[self.context.shape[0] :]
 
@@ -147,8 +147,8 @@ class StreamScorer:
         return step, score, theta, bool(alert)
 
     def attribution(self) -> np.ndarray | None:
-        """Channel attribution of the latest row, where the detector offers ``attribute``."""
-        attribute = getattr(self.bundle.detector, "attribute", None)
-        if attribute is None:
+        """Channel attribution of the latest row, where the detector declares ``attributes``."""
+        if not getattr(self.bundle.detector, "attributes", False):
             return None
+        attribute = self.bundle.detector.attribute
         return np.asarray(attribute(np.asarray(self.rows)))[-1]

@@ -20,6 +20,14 @@ from benchkit.metrics.alerts import (
     count_alerts,
 )
 from benchkit.metrics.best import BestF1, F1Curve, best_f1, f1_curve
+from benchkit.metrics.diagnosis import (
+    DEFAULT_DIAGNOSIS_P,
+    chance_hit_rate,
+    diagnosis_metrics,
+    hit_rate,
+    kind_recall,
+    ndcg_at,
+)
 from benchkit.metrics.event_level import composite_f1, detection_delays, event_recall
 from benchkit.metrics.events import events_to_labels, labels_to_events
 from benchkit.metrics.inputs import MetricInputError
@@ -33,6 +41,7 @@ from benchkit.metrics.threshold_free import pr_auc, roc_auc
 __all__ = [
     "ALERT_METRICS",
     "AlertCurve",
+    "DEFAULT_DIAGNOSIS_P",
     "BestF1",
     "F1Curve",
     "MetricInputError",
@@ -41,15 +50,20 @@ __all__ = [
     "alert_metrics",
     "best_f1",
     "best_range_f1",
+    "chance_hit_rate",
     "composite_f1",
     "count_alerts",
     "delay_adjust",
     "detection_delays",
+    "diagnosis_metrics",
     "event_recall",
     "events_to_labels",
     "f1_curve",
+    "hit_rate",
+    "kind_recall",
     "labels_to_events",
     "metric_set",
+    "ndcg_at",
     "oracle_metric_set",
     "pa_k_adjust",
     "pa_k_f1_auc",

@@ -8,6 +8,7 @@ import numpy as np
 
 from benchkit.metrics.adjust import DEFAULT_KS, curve_mean, delay_adjust, pa_k_adjust, pa_k_f1_auc
 from benchkit.metrics.best import BestF1, best_from_tally
+from benchkit.metrics.diagnosis import DEFAULT_DIAGNOSIS_P
 from benchkit.metrics.event_level import composite_f1, detection_delays, event_recall
 from benchkit.metrics.inputs import MetricInputError, binary_pair, scores_and_labels
 from benchkit.metrics.pointwise import confusion, counts_to_prf, prf
@@ -26,6 +27,8 @@ class MetricOptions:
     delay : delay bound in steps for ``delay_*`` (an event counts when detected at most this many
         steps after its first point).
     range_alpha, range_cardinality, range_bias : α, γ and δ of the range-based metrics.
+    diagnosis_p : P values (integer percent, 1 to 1000) of HitRate@P% and NDCG@P%, reported as
+        ``hit_rate@{P}`` and ``ndcg@{P}`` where events name culprit KPIs.
     """
 
     pa_k: tuple[int, ...] = (5, 20, 50)
@@ -33,18 +36,10 @@ class MetricOptions:
     range_alpha: float = 0.0
     range_cardinality: str = "one"
     range_bias: str = "flat"
+    diagnosis_p: tuple[int, ...] = DEFAULT_DIAGNOSIS_P
 
     def __post_init__(self) -> None:
-        ks = self.pa_k
-        if isinstance(ks, (str, bytes)) or not hasattr(ks, "__iter__"):
-            raise MetricInputError(f"metrics.pa_k: expected a list of integers, got {ks!r}")
-        ks = tuple(ks)
-        for k in ks:
-            if isinstance(k, bool) or not isinstance(k, (int, np.integer)) or not 0 <= k <= 100:
-                raise MetricInputError(f"metrics.pa_k: {k!r} is not an integer from 0 to 100")
-        if len(set(ks)) != len(ks):
-            raise MetricInputError(f"metrics.pa_k: repeated values in {list(ks)}")
-        object.__setattr__(self, "pa_k", tuple(int(k) for k in ks))
+        object.__setattr__(self, "pa_k", _int_list(self.pa_k, "pa_k", 0, 100))
         if isinstance(self.delay, bool) or not isinstance(self.delay, (int, np.integer)) or (
             self.delay < 0
         ):
@@ -55,6 +50,7 @@ class MetricOptions:
             raise MetricInputError(f"metrics.range_{exc}") from None
         object.__setattr__(self, "range_alpha", alpha)
         object.__setattr__(self, "delay", int(self.delay))
+        object.__setattr__(self, "diagnosis_p", _int_list(self.diagnosis_p, "diagnosis_p", 1, 1000))
 
     def metric_names(self) -> tuple[str, ...]:
         """The keys of :func:`metric_set` and :func:`oracle_metric_set`, in report order."""
@@ -65,6 +61,19 @@ class MetricOptions:
             "event_recall", "composite_f1", "delay_mean", "delay_median",
             "range_precision", "range_recall", "range_f1",
         )  # fmt: skip
+
+
+def _int_list(values: object, key: str, low: int, high: int) -> tuple[int, ...]:
+    """``values`` as a tuple of distinct integers in ``[low, high]``, or MetricInputError."""
+    if isinstance(values, (str, bytes)) or not hasattr(values, "__iter__"):
+        raise MetricInputError(f"metrics.{key}: expected a list of integers, got {values!r}")
+    out = tuple(values)
+    for v in out:
+        if isinstance(v, bool) or not isinstance(v, (int, np.integer)) or not low <= v <= high:
+            raise MetricInputError(f"metrics.{key}: {v!r} is not an integer from {low} to {high}")
+    if len(set(out)) != len(out):
+        raise MetricInputError(f"metrics.{key}: repeated values in {list(out)}")
+    return tuple(int(v) for v in out)
 
 
 def _named(prefix: str, values: tuple[float, float, float]) -> dict[str, float]:

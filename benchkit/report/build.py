@@ -12,6 +12,7 @@ from benchkit.metrics import alert_curve, f1_curve
 from benchkit.metrics.alerts import duration
 from benchkit.report import plots
 from benchkit.report.decision import decision_tables
+from benchkit.report.diagnosis import diagnosis_tables
 from benchkit.report.files import write_text_atomic
 from benchkit.report.html import build_html
 from benchkit.report.render import EXTENSIONS, check_format, render_table
@@ -72,6 +73,7 @@ def build_tables(
 ) -> list[Table]:
     """Comparison tables (every strategy in the run, or only ``threshold``), with ``store``
     the bootstrap-interval tables of the same strategies (they need the cached scores), then
+    the diagnosis tables of the same strategies and the per-kind table, then
     the timing table, with ``store`` the training table (how the deep cells trained), with a
     ``spec`` (plain data) that varies hyperparameters the sensitivity table, then the
     robustness and rank tables for ``metric`` under ``threshold`` (default: the first strategy
@@ -85,6 +87,7 @@ def build_tables(
     return [
         *(comparison_table(metrics, s) for s in shown),
         *(uncertainty_table(cached, s) for s in shown if cached is not None),
+        *diagnosis_tables(metrics, shown),
         timing_table(cells),
         *([training] if training is not None and len(training.rows) else []),  # none empty
         *([sensitivity_table(metrics, varied_variants(spec), metric, chosen)]

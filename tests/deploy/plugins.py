@@ -15,6 +15,7 @@ class DistanceWithCulprits(SavesArrays, Detector):
     description = "absolute distance to the train mean, attributed per KPI"
     params = (Param("seed", int, 0, "unused", low=0),)
     fitted_state = ("mean_",)
+    attributes = True
 
     def fit(self, train: np.ndarray) -> DistanceWithCulprits:
         self.mean_ = check_series(train, "train").mean(axis=0)

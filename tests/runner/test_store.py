@@ -128,3 +128,14 @@ def test_partial_score_files_are_removed(tmp_path):
     leftover.write_bytes(b"half")
     assert store.remove_partial_files() == 1
     assert not leftover.exists() and store.score_path("k1").exists()
+
+
+def test_a_results_folder_from_before_attribution_timing_gets_the_column(tmp_path):
+    # common practice, no source: an old database is upgraded in place, old rows read NULL
+    store, run_id, _ = _store_with_one_cell(tmp_path)
+    store._conn.execute("ALTER TABLE cells DROP COLUMN attribute_seconds")
+    store.close()
+    with Store(tmp_path / "out") as again:
+        frame = again.cells_frame(run_id)
+        assert "attribute_seconds" in frame.columns
+        assert frame["attribute_seconds"].isna().all()
