@@ -7,7 +7,12 @@ import math
 import pandas as pd
 import pytest
 
-from benchkit.report.diagnosis import NO_ATTRIBUTION, diagnosis_table, kind_table
+from benchkit.report.diagnosis import (
+    NO_ATTRIBUTION,
+    diagnosis_table,
+    diagnosis_tables,
+    kind_table,
+)
 from benchkit.report.render import render_table
 
 
@@ -61,6 +66,9 @@ def test_diagnosis_table_says_so_when_the_data_has_no_culprits():
     frame = _frame([("pca", "a", 0, "pot", "f1", 0.4)])
     table = diagnosis_table(frame, "pot")
     assert table.rows == () and "names no culprit KPIs" in table.notes[0]
+    # one such table for the whole run, not one per strategy
+    names = [t.name for t in diagnosis_tables(frame, ["oracle", "pot"])]
+    assert names == ["diagnosis", "kinds"]
 
 
 def test_kind_table_pools_events_over_entities_and_marks_missed_kinds():
