@@ -94,6 +94,15 @@ def count_alerts(pred: object, labels: object, merge_gap: int = 0) -> tuple[int,
 def dense_levels(scores: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Distinct finite scores descending, and each step's level: the index of its score there.
 
+    ``-inf`` gets the level ``len(thresholds)`` (never predicted). See :func:`_levels`.
+    """
+    thresholds, level, _ = _levels(scores)
+    return thresholds, level
+
+
+def _levels(scores: np.ndarray) -> tuple[np.ndarray, np.ndarray, bool]:
+    """:func:`dense_levels`, and whether all scores are distinct (every level used once).
+
     ``-inf`` gets the level ``len(thresholds)`` (never predicted). One sort of int64 words, each
     the score's order-preserving key (its IEEE 754 bits, negatives reflected, -0.0 as 0.0) with
     the lowest bits replaced by the step's index, gives the permutation. Neighbours in that order
@@ -104,38 +113,49 @@ def dense_levels(scores: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     n = len(scores)
     width = max(int(n - 1).bit_length(), 1)
     low_bits = np.int64((1 << width) - 1)
+    if n and (scores == 0.0).any():
+        scores = scores + 0.0  # -0.0 becomes 0.0: the two are one score with one key
     bits = scores.view(np.int64)
     words = np.right_shift(bits, 63)
     words &= np.int64(0x7FFF_FFFF_FFFF_FFFF)
-    words ^= bits
-    words -= words >> 63  # negatives one up, so that -0.0 and 0.0 share the key 0
+    words ^= bits  # negatives reflected: the int64 order is the float order
     words &= ~low_bits
-    scratch = np.arange(n, dtype=np.int64)
-    words |= scratch
+    index = np.arange(n, dtype=np.int64)
+    words |= index
     words.sort()
-    np.bitwise_xor(words[1:], words[:-1], out=scratch[1:])
-    scratch[1:] &= ~low_bits  # 0 where neighbours share the upper part
-    pairs = np.flatnonzero(scratch[1:] == 0)  # pair (i, i + 1) for each i in pairs
+    level = np.empty(n, dtype=np.int64)  # first a scratch buffer, filled at the end
+    np.bitwise_xor(words[1:], words[:-1], out=level[1:])
+    level[1:] &= ~low_bits  # 0 where neighbours share the upper part
+    pairs = np.flatnonzero(level[1:] == 0)  # pair (i, i + 1) for each i in pairs
     words &= low_bits  # now the permutation
-    if len(pairs):
+    unique = True
+    if len(pairs) == 0:  # all scores distinct: the rank is the position
+        count = n
+        np.subtract(n - 1, index, out=index)
+        level[words] = index
+    else:
         left, right = scores[words[pairs]], scores[words[pairs + 1]]
         clash = pairs[left != right]
         if len(clash):  # runs of one upper part holding different scores: order them by score
             _sort_runs(words, scores, pairs, clash)
             left, right = scores[words[pairs]], scores[words[pairs + 1]]
-    distinct = np.ones(n, dtype=bool)
-    if len(pairs):
-        distinct[pairs + 1] = left != right
-    rank = np.cumsum(distinct, dtype=np.int64, out=scratch)  # 1-based, ascending
-    count = int(rank[-1]) if n else 0
-    np.subtract(count, rank, out=rank)
-    level = np.empty(n, dtype=np.int64)
-    level[words] = rank
+        ties = pairs[left == right] + 1  # positions holding the same score as the one before
+        if len(ties) == 0:
+            count = n
+            np.subtract(n - 1, index, out=index)
+        else:
+            unique = False
+            distinct = np.ones(n, dtype=bool)
+            distinct[ties] = False
+            rank = np.cumsum(distinct, dtype=np.int64, out=index)  # 1-based, ascending
+            count = int(rank[-1])
+            np.subtract(count, rank, out=rank)
+        level[words] = index
     thresholds = np.empty(count, dtype=np.float64)
     thresholds[level] = scores
     if count and thresholds[-1] == -np.inf:
         thresholds = thresholds[:-1]  # its level is the number of finite values: never predicted
-    return thresholds, level
+    return thresholds, level, unique
 
 
 def _sort_runs(order: np.ndarray, scores: np.ndarray, pairs: np.ndarray, clash: np.ndarray):
@@ -231,7 +251,7 @@ def alert_curve(scores: object, labels: object, merge_gap: int = 0) -> AlertCurv
     """
     s, y = scores_and_labels(scores, labels)
     gap = check_merge_gap(merge_gap)
-    thresholds, level = dense_levels(s)
+    thresholds, level, unique = _levels(s)
     top = len(thresholds)
     if top == 0:
         return AlertCurve(thresholds, np.empty(0), np.empty(0, dtype=np.int64))
@@ -247,18 +267,27 @@ def alert_curve(scores: object, labels: object, merge_gap: int = 0) -> AlertCurv
     # An unlabelled step t starts an alert at the levels level[t] <= k < before[t]; each such
     # alert is false unless it is the one that runs into the next event.
     candidate = level < before
-    candidate &= ~y
+    np.greater(candidate, y, out=candidate)  # and unlabelled
     starts = np.flatnonzero(candidate)
-    change = np.bincount(level[starts], minlength=top + 1)
-    change -= np.bincount(before[starts], minlength=top + 1)
+    if unique and gap == 0:  # each level, and each step before a start, is met once
+        change = np.zeros(top + 1, dtype=np.int64)
+        change[level[starts]] = 1
+        change[before[starts]] -= 1  # only "top" can repeat, and it is dropped below
+    else:
+        change = np.bincount(level[starts], minlength=top + 1)
+        change -= np.bincount(before[starts], minlength=top + 1)
     if len(events) == 0:
-        return AlertCurve(thresholds, np.zeros(top), np.cumsum(change[:top]))
+        return AlertCurve(thresholds, np.zeros(top), np.cumsum(change, out=change)[:top])
     first, bridged = _last_alert_levels(level, windows, events, gap, top)
     np.subtract.at(change, first, 1)
     np.add.at(change, bridged, 1)
     detected = np.minimum.reduceat(level, _bounds(events[:, 0], events[:, 1] + 1, len(level)))[::2]
-    recall = np.cumsum(np.bincount(detected, minlength=top + 1)[:top]) / len(events)
-    return AlertCurve(thresholds, recall, np.cumsum(change[:top]))
+    # event recall steps up at each event's detection level: written run by run, not summed
+    found, at = np.unique(np.minimum(detected, top), return_counts=True)
+    steps = np.diff(np.concatenate((found, [top])))
+    recall = np.repeat(np.cumsum(at) / len(events), steps)
+    recall = np.concatenate((np.zeros(found[0]), recall)) if found[0] > 0 else recall
+    return AlertCurve(thresholds, recall[:top], np.cumsum(change, out=change)[:top])
 
 
 # ------------------------------------------------------------------ what the operator sees

@@ -88,8 +88,11 @@ def test_merge_gap_must_be_a_non_negative_integer(bad):
 def cases(draw):
     n = draw(st.integers(1, 40))
     labels = np.array(draw(st.lists(st.integers(0, 1), min_size=n, max_size=n)), dtype=np.int8)
-    values = st.one_of(st.integers(0, 7).map(float), st.just(-math.inf))
-    scores = np.array(draw(st.lists(values, min_size=n, max_size=n)))
+    if draw(st.booleans()):  # ties: few distinct values
+        values = st.one_of(st.integers(0, 7).map(float), st.just(-math.inf))
+    else:  # mostly distinct values (the path where every level is used once)
+        values = st.one_of(st.floats(-1e3, 1e3, allow_nan=False), st.just(-math.inf))
+    scores = np.array(draw(st.lists(values, min_size=n, max_size=n)), dtype=np.float64)
     return scores, labels, draw(st.integers(0, 5))
 
 
