@@ -48,6 +48,12 @@ def run(root: Path, workers: int | None, work: Path) -> float:
     """Run the public experiment into ``work`` (report and scorecard included); wall seconds."""
     from benchkit.cli import main
 
+    for name in KEPT:  # a kept --work folder: drop the last report, so nothing stale is copied
+        target = work / name
+        if target.is_dir():
+            shutil.rmtree(target)
+        elif target.exists():
+            target.unlink()
     args = ["run", str(SPEC), "--out", str(work), "--data-root", str(root), "--quiet"]
     if workers is not None:
         args += ["--workers", str(workers)]
