@@ -81,7 +81,9 @@ def training_table(frame: pd.DataFrame) -> Table:
     notes = [
         "Losses are mean negative ELBO per window (beta = 1); the weights of the best validation "
         "epoch are kept. 'still falling': stopped at max_epochs while the last epoch was the "
-        "best, so the budget may be too small. 'rose after best': the last validation loss is "
+        "best, so validation loss might have fallen further; that measures the fit to "
+        "train-like data, not detection (the README's budget study found more training "
+        "lowered F1 on public server machines). 'rose after best': the last validation loss is "
         f"above its minimum by more than {RISE_FRACTION:g} of what training had gained, so "
         "longer training was drifting away from the validation data. The loss curves are in "
         "the training-loss plot.",
