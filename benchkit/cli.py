@@ -25,6 +25,7 @@ COMMAND_MODULES = (
     "benchkit.commands.export",
     "benchkit.commands.export_model",
     "benchkit.commands.apply",
+    "benchkit.commands.worker",
 )
 
 

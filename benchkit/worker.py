@@ -89,7 +89,8 @@ def _ignore_swallowed_timeouts(unraisable: Any, _default: Any = sys.unraisableho
         _default(unraisable)
 
 
-def _limit_threads() -> None:
+def limit_threads() -> None:
+    """One thread in every BLAS/OpenMP pool loaded in this process, and one torch thread."""
     from threadpoolctl import threadpool_limits
 
     threadpool_limits(1)
@@ -111,7 +112,7 @@ def execute_task(task: CellTask, entity: Entity | None = None) -> CellResult:
             registry.get(task.detector)
         except Exception as exc:
             return CellResult(task.key, "failed", error=describe_error(exc))
-    _limit_threads()  # after the imports: torch may have just been loaded
+    limit_threads()  # after the imports: torch may have just been loaded
     memory = PeakMemory()
     try:
         with memory:

@@ -1,28 +1,43 @@
-"""Runner scaling and store overhead, measured side by side in one run.
+"""Runner scaling, executor parity and store overhead, measured side by side in one run.
 
 1. Cells per second of ``run_experiment`` on a CPU-bound grid (classical detectors on the demo
    scenario) with 1 and with 2 local workers, each into a fresh results folder; median of
    ``--repeats`` runs. Target: 2 workers at least 1.6x faster than 1 on 2 cores.
-2. The store's own cost per cell: ``Store.write_cell`` (compressed score file written and renamed,
+2. Executor parity: the same cells (the default spec's detectors, classical and torch, on
+   ``--entities`` application-server entities of the public data, one seed) on the local pool,
+   on a Dask LocalCluster (``executor = "dask"``, no scheduler; its start-up is part of the run)
+   and on a scheduler with two worker commands on 127.0.0.1 (started before the clock starts, as
+   a standing cluster would be): ``benchkit worker`` twice, then plain ``dask worker`` twice
+   (set up by benchkit's worker plug-in). Each on ``--workers`` worker processes. Prints cells/s,
+   wall time relative to the local pool (target: within 1.15x), and the CPU seconds the worker
+   processes spent per cell (user and system), which other load on the machine moves less than
+   wall time. The metrics of every executor must equal the local pool's.
+3. The store's own cost per cell: ``Store.write_cell`` (compressed score file written and renamed,
    then one SQLite transaction with the cell row, its metrics and thresholds) for cells of the
    default demo size; median over ``--cells`` writes. Target: under 5 ms.
 
-Run: ``.venv/bin/python benchmarks/runner_scaling.py``.
+Run: ``.venv/bin/python benchmarks/runner_scaling.py`` (``--skip-executors`` for parts 1 and 3
+only; the public data folder is ``../shared/data/public`` or ``$BENCHKIT_PUBLIC_DATA``).
 """
 
 from __future__ import annotations
 
 import argparse
+import os
+import resource
 import statistics
 import tempfile
 import time
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
+import psutil
 
+from benchkit.loopback import LoopbackCluster
 from benchkit.metrics import MetricOptions
 from benchkit.runner import available_cores, run_experiment
-from benchkit.spec import parse_spec
+from benchkit.spec import default_spec, parse_spec
 from benchkit.store import CellRecord, Store
 
 GRID = {
@@ -50,6 +65,66 @@ def cells_per_second(workers: int, repeats: int) -> tuple[float, int]:
         n = summary.n_computed
         rates.append(n / elapsed)
     return statistics.median(rates), n
+
+
+def public_data() -> Path:
+    root = os.environ.get("BENCHKIT_PUBLIC_DATA")
+    return Path(root) if root else Path(__file__).resolve().parents[1] / "../shared/data/public"
+
+
+def parity_spec(n_entities: int) -> dict:
+    entities = [f"omi-{i}" for i in range(1, n_entities + 1)]
+    source = str((public_data() / "app-servers").resolve())
+    return {
+        "name": "executor-parity",
+        "seeds": [0],
+        "datasets": [{"source": source, "entities": entities}],
+        "detectors": default_spec().to_dict()["detectors"],
+    }
+
+
+def _metrics(out: Path) -> pd.DataFrame:
+    with Store(out) as store:
+        return store.metrics_frame().drop(columns="cell_key")
+
+
+def _children_cpu() -> tuple[float, float]:
+    r = resource.getrusage(resource.RUSAGE_CHILDREN)
+    return r.ru_utime, r.ru_stime
+
+
+def _processes_cpu(pids: list[int]) -> tuple[float, float]:
+    times = [psutil.Process(pid).cpu_times() for pid in pids]
+    return sum(t.user for t in times), sum(t.system for t in times)
+
+
+def executor_parity(n_entities: int, workers: int, tmp: Path) -> list[tuple]:
+    """Rows ``(executor, cells, seconds, user_s, sys_s)``; checks metrics against the local pool."""
+    spec = parse_spec(parity_spec(n_entities))
+    rows = []
+
+    def timed(name: str, out: Path, cpu, **kw) -> None:
+        before = cpu()
+        start = time.perf_counter()
+        summary = run_experiment(spec, out, workers=workers, quiet=True, **kw)
+        elapsed = time.perf_counter() - start
+        after = cpu()
+        if summary.n_failed or summary.n_timeout:
+            raise SystemExit(f"{name}: failed cells: {summary.failures[:3]}")
+        if name != "local pool":
+            pd.testing.assert_frame_equal(_metrics(out), _metrics(tmp / "local"))
+        rows.append((name, summary.n_computed, elapsed, after[0] - before[0],
+                     after[1] - before[1]))  # fmt: skip
+
+    timed("local pool", tmp / "local", _children_cpu)
+    timed("Dask LocalCluster", tmp / "localcluster", _children_cpu, executor="dask")
+    for kind, label in (("benchkit", "benchkit worker"), ("dask", "plain dask worker")):
+        with LoopbackCluster([kind] * workers) as cluster:
+            pids = list(cluster.worker_pids().values())
+            timed(f"scheduler + {workers} x {label}", tmp / kind,
+                  lambda pids=pids: _processes_cpu(pids), executor="dask",
+                  scheduler=cluster.address)  # fmt: skip
+    return rows
 
 
 def store_overhead_ms(n_cells: int) -> float:
@@ -86,6 +161,9 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--repeats", type=int, default=3)
     parser.add_argument("--cells", type=int, default=300)
+    parser.add_argument("--entities", type=int, default=8, help="application-server entities")
+    parser.add_argument("--workers", type=int, default=2, help="worker processes per executor")
+    parser.add_argument("--skip-executors", action="store_true")
     args = parser.parse_args()
     one, n = cells_per_second(1, args.repeats)
     two, _ = cells_per_second(2, args.repeats)
@@ -98,6 +176,24 @@ def main() -> None:
     print(f"{2:>8}  {two:>8.2f}  {two / one:>8.2f}  >= 1.60 ({verdict})")
     print(f"store overhead per cell: {store_ms:.2f} ms (median of {args.cells} writes; "
           f"target < 5 ms: {'met' if store_ms < 5 else 'NOT met'})")  # fmt: skip
+    if args.skip_executors:
+        return
+    with tempfile.TemporaryDirectory() as tmp:
+        rows = executor_parity(args.entities, args.workers, Path(tmp))
+    n = rows[0][1]
+    print(f"\nexecutor parity: {n} cells (default spec's {n // args.entities} detector variants x "
+          f"{args.entities} application-server entities x 1 seed), {args.workers} worker "
+          f"processes each, metrics identical to the local pool's in every executor")  # fmt: skip
+    print(f"{'executor':<32}  {'cells/s':>7}  {'wall s':>7}  {'x local':>7}  "
+          f"{'CPU s/cell (user + sys)':>24}  target")  # fmt: skip
+    base = rows[0][2]
+    for name, cells, seconds, user, system in rows:
+        ratio = seconds / base
+        verdict = "" if name == "local pool" else (
+            f"<= 1.15 ({'met' if ratio <= 1.15 else 'NOT met'})")  # fmt: skip
+        cpu = f"{user / cells:.3f} + {system / cells:.3f}"
+        print(f"{name:<32}  {cells / seconds:>7.2f}  {seconds:>7.1f}  {ratio:>7.2f}  "
+              f"{cpu:>24}  {verdict}")  # fmt: skip
 
 
 if __name__ == "__main__":
