@@ -8,15 +8,22 @@ instead of retrying it elsewhere (see :data:`benchkit.daskworker.SCHEDULER_CONFI
 
 Dask has no hard stop for a cell stuck in one C call: such a cell is marked ``timeout`` only
 when that call returns.
+
+Numerics: a LocalCluster's worker processes get the numeric path's environment at their start
+(Dask's ``distributed.nanny.pre-spawn-environ``); Dask sets it in the nanny's process, which for a
+LocalCluster is the driver, so the driver's environment is put back once the workers are up. A
+worker started elsewhere without that environment fails its cells with a message saying so.
 """
 
 from __future__ import annotations
 
+import os
 import sys
 from collections import deque
 from collections.abc import Iterable, Iterator
 from typing import Any
 
+from benchkit import numerics
 from benchkit.errors import SpecError
 from benchkit.protocol import CellResult, CellTask
 from benchkit.worker import describe_error, execute_task
@@ -32,11 +39,14 @@ class DaskSession:
     is written; a local cluster starts only when there is something to run.
     """
 
-    def __init__(self, workers: int, scheduler: str | None) -> None:
+    def __init__(
+        self, workers: int, scheduler: str | None, mode: str = numerics.DEFAULT_MODE
+    ) -> None:
         from distributed import Client
 
         self.workers, self.cluster, self.client = workers, None, None
         self._set_up = False
+        self.mode = mode
         if scheduler:
             try:
                 self.client = Client(scheduler, timeout="10s")
@@ -54,15 +64,24 @@ class DaskSession:
 
             from benchkit import daskworker
 
-            with dask.config.set({**daskworker.NANNY_CONFIG, **daskworker.SCHEDULER_CONFIG}):
-                self.cluster = LocalCluster(
-                    n_workers=max(1, self.workers),
-                    threads_per_worker=1,
-                    processes=True,
-                    host="127.0.0.1",
-                    dashboard_address=None,
-                    silence_logs=logging.ERROR,
-                )
+            config = {**daskworker.nanny_config(self.mode), **daskworker.SCHEDULER_CONFIG}
+            saved = {k: os.environ.get(k) for k in numerics.worker_environ(self.mode)}
+            try:  # Dask sets the pre-spawn environment in this (the nanny's) process too
+                with dask.config.set(config):
+                    self.cluster = LocalCluster(
+                        n_workers=max(1, self.workers),
+                        threads_per_worker=1,
+                        processes=True,
+                        host="127.0.0.1",
+                        dashboard_address=None,
+                        silence_logs=logging.ERROR,
+                    )
+            finally:
+                for k, v in saved.items():
+                    if v is None:
+                        os.environ.pop(k, None)
+                    else:
+                        os.environ[k] = v
             self.client = Client(self.cluster)
         if not self._set_up:
             self._set_up_workers(self.client)

@@ -52,6 +52,16 @@ NANNY_CONFIG: dict[str, Any] = {
 }
 """Dask configuration for a process that hosts nannies (``benchkit worker``, a LocalCluster)."""
 
+def nanny_config(mode: str = "pinned") -> dict[str, Any]:
+    """:data:`NANNY_CONFIG` plus the environment of the numeric path ``mode``
+    (:func:`benchkit.numerics.worker_environ`), which a worker process needs from its start."""
+    from benchkit import numerics
+
+    prefix = "distributed.nanny.pre-spawn-environ."
+    pinned = {prefix + k: v for k, v in numerics.worker_environ(mode).items()}
+    return {**NANNY_CONFIG, **pinned}
+
+
 SCHEDULER_CONFIG: dict[str, Any] = {
     # a cell whose worker dies fails at once, as in the local pool, instead of being retried on
     # other workers (which a cell that crashes its process would kill one after another)

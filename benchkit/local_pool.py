@@ -1,5 +1,9 @@
 """The local executor: a pool of worker processes on this machine, fed through pipes.
 
+Workers are fresh interpreters (:class:`~benchkit.worker_process.WorkerProcess`) started with
+the environment of the spec's numeric path (:mod:`benchkit.numerics`), since the libraries read
+it only when they load; the driver's own environment and libraries are left as they were.
+
 A worker that dies (a crash in native code, the OOM killer) fails its cell; one still busy a grace
 period past the cell's time limit is killed (status ``timeout``) and a fresh one takes its place.
 """
@@ -7,9 +11,7 @@ period past the cell's time limit is killed (status ``timeout``) and a fresh one
 from __future__ import annotations
 
 import math
-import multiprocessing
 import os
-import sys
 import threading
 import time
 from collections import deque
@@ -17,9 +19,10 @@ from collections.abc import Iterable, Iterator
 from multiprocessing.connection import wait
 from typing import Any
 
-from benchkit import registry
+from benchkit import numerics, registry
 from benchkit.protocol import CellResult, CellTask
-from benchkit.worker import execute_task
+from benchkit.worker import enter_numerics, execute_task
+from benchkit.worker_process import WorkerProcess
 
 
 def hard_kill_grace(limit: float) -> float:
@@ -31,6 +34,13 @@ def hard_kill_grace(limit: float) -> float:
 def _worker_main(conn: Any) -> None:
     """Loop of a local worker process: receive a task, send its result, until told to stop."""
     parent = os.getppid()
+    mode = os.environ.get("BENCHKIT_WORKER_NUMERICS", numerics.DEFAULT_MODE)
+    try:  # load the built-ins once, on the numeric path set at the worker's start
+        for module in registry.BUILTIN_MODULES:
+            __import__(module)
+        enter_numerics(mode)
+    except Exception:  # noqa: S110 - each cell reports such a failure itself
+        pass
 
     def watch_parent() -> None:
         # a SIGKILLed driver must not leave workers behind: the kernel re-parents them at once
@@ -51,11 +61,11 @@ def _worker_main(conn: Any) -> None:
 
 
 class _Worker:
-    def __init__(self, ctx: Any) -> None:
-        self.conn, child = ctx.Pipe()
-        self.process = ctx.Process(target=_worker_main, args=(child,), daemon=True)
-        self.process.start()
-        child.close()
+    def __init__(self, mode: str) -> None:
+        self.mode = mode
+        env = {**numerics.worker_environ(mode), "BENCHKIT_WORKER_NUMERICS": mode}
+        self.process = WorkerProcess(env, "benchkit.local_pool:_worker_main")
+        self.conn = self.process.conn
         self.task: CellTask | None = None
         self.deadline = 0.0
 
@@ -64,19 +74,6 @@ class _Worker:
         self.process.kill()
         self.process.join(5)
         self.conn.close()
-
-
-def _context() -> Any:
-    """Fork on Linux (workers inherit the imported harness and detectors at no cost); elsewhere
-    a fork server that has imported them once."""
-    if sys.platform.startswith("linux"):
-        return multiprocessing.get_context("fork")
-    try:  # pragma: no cover - not on Linux
-        ctx = multiprocessing.get_context("forkserver")
-        ctx.set_forkserver_preload(["benchkit.worker", *registry.BUILTIN_MODULES])
-        return ctx
-    except ValueError:  # pragma: no cover - platforms without forkserver
-        return multiprocessing.get_context("spawn")
 
 
 def run_local(tasks: Iterable[CellTask], workers: int) -> Iterator[CellResult]:
@@ -90,17 +87,17 @@ def run_local(tasks: Iterable[CellTask], workers: int) -> Iterator[CellResult]:
     queue = deque(tasks)
     if not queue:
         return iter(())
-    ctx = _context()
-    pool = [_Worker(ctx) for _ in range(max(1, min(workers, len(queue))))]
-    return _drive(ctx, pool, queue)
+    mode = queue[0].numerics
+    pool = [_Worker(mode) for _ in range(max(1, min(workers, len(queue))))]
+    return _drive(pool, queue)
 
 
-def _drive(ctx: Any, pool: list[_Worker], queue: deque) -> Iterator[CellResult]:
+def _drive(pool: list[_Worker], queue: deque) -> Iterator[CellResult]:
     try:
         while True:
             for i, w in enumerate(pool):
                 if w.task is None and queue:
-                    pool[i] = _dispatch(ctx, w, queue.popleft())
+                    pool[i] = _dispatch(w, queue.popleft())
             busy = [w for w in pool if w.task is not None]
             if not busy:
                 return
@@ -121,22 +118,22 @@ def _drive(ctx: Any, pool: list[_Worker], queue: deque) -> Iterator[CellResult]:
                 if replace:
                     w.kill()
                     if queue:
-                        pool[i] = _Worker(ctx)
+                        pool[i] = _Worker(w.mode)
                 yield result
     finally:
         _shut_down(pool)
 
 
-def _dispatch(ctx: Any, w: _Worker, task: CellTask) -> _Worker:
+def _dispatch(w: _Worker, task: CellTask) -> _Worker:
     """Send ``task`` to idle worker ``w`` (replaced first if it died while idle)."""
     if not w.process.is_alive():
         w.kill()
-        w = _Worker(ctx)
+        w = _Worker(w.mode)
     try:
         w.conn.send(task)
     except OSError:  # it died just now: one fresh worker, one more try
         w.kill()
-        w = _Worker(ctx)
+        w = _Worker(w.mode)
         w.conn.send(task)
     w.task = task
     w.deadline = time.monotonic() + task.time_limit + hard_kill_grace(task.time_limit)

@@ -72,8 +72,10 @@ def cell_key(
     perturbation: str,
     scaling: str,
     constant_channels: str = "keep",
+    numerics: str = "pinned",
 ) -> str:
-    """sha256 hex of everything that determines a cell's scores (metric options excluded)."""
+    """sha256 hex of everything that determines a cell's scores (metric options excluded),
+    the workers' numeric path (:mod:`benchkit.numerics`) included."""
     payload = {
         "detector": detector,
         "params": params,
@@ -83,6 +85,7 @@ def cell_key(
         "perturbation": perturbation,
         "scaling": scaling,
         "constant_channels": constant_channels,
+        "numerics": numerics,
         "protocol": PROTOCOL_VERSION,
     }
     return hashlib.sha256(canonical_json(payload).encode()).hexdigest()
@@ -131,6 +134,7 @@ class CellTask:
     cached_scores: dict[str, Any] | None = None
     save_to: str | None = None
     constant_channels: str = "keep"
+    numerics: str = "pinned"
 
 
 @dataclass

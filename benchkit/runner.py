@@ -20,6 +20,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+from benchkit import numerics
 from benchkit.dask_executor import DaskSession
 from benchkit.data.model import Dataset, Entity
 from benchkit.errors import DataError, SpecError
@@ -160,6 +161,7 @@ def expand_grid(spec: ExperimentSpec, datasets: list[Dataset]) -> list[PlannedCe
                         key = cell_key(
                             det.name, params, fingerprint, entity.name, seed, p.key(), spec.scaling,
                             spec.constant_channels,
+                            spec.execution.numerics,
                         )
                         # the same data listed twice gives the same cell: keep the first
                         cells.setdefault(
@@ -222,8 +224,9 @@ def available_cores() -> int:
         return max(1, os.cpu_count() or 1)
 
 
-def environment() -> dict[str, Any]:
-    """Package versions, Python, platform, cores and the git revision of the checkout if any."""
+def environment(mode: str = numerics.DEFAULT_MODE) -> dict[str, Any]:
+    """Package versions, Python, platform, cores, the numeric environment of ``mode``
+    (:func:`benchkit.numerics.describe`) and the git revision of the checkout if any."""
     import platform
     import subprocess
     from importlib.metadata import PackageNotFoundError, version
@@ -254,6 +257,7 @@ def environment() -> dict[str, Any]:
         "platform": platform.platform(),
         "machine": platform.machine(),
         "cores": available_cores(),
+        "numerics": numerics.describe(mode),
         "git_revision": None,
         "git_dirty": None,
     }
@@ -329,14 +333,15 @@ def run_experiment(
     fingerprints = {(d.name, e.name): e.fingerprint() for d in datasets for e in d.entities}
     with contextlib.ExitStack() as stack:
         session = (
-            stack.enter_context(DaskSession(workers, scheduler)) if executor == "dask" else None
+            stack.enter_context(DaskSession(workers, scheduler, spec.execution.numerics)) if executor == "dask" else None
         )
         stack.enter_context(writer_lock(out))
         store = stack.enter_context(Store(out, create=True))
         store.remove_partial_files()
         grid = [(c.key, c.variant) for c in plan]
-        run_id = store.begin_run(spec.name, spec.to_toml(), spec.to_dict(), environment(),
-                                 fingerprints, grid)  # fmt: skip
+        env = environment(spec.execution.numerics)
+        run_id = store.begin_run(spec.name, spec.to_toml(), spec.to_dict(), env, fingerprints,
+                                 grid)  # fmt: skip
         summary = RunSummary(out=out, run_id=run_id, n_cells=len(plan))
         tasks = _tasks(store, plan, spec, evaluation, summary)
         results = session.run(tasks) if session is not None else run_local(tasks, workers)
@@ -371,7 +376,8 @@ def _tasks(store: Store, plan: list[PlannedCell], spec: ExperimentSpec, evaluati
         tasks.append(CellTask(cell.key, cell.detector.name, cell.params, cell.seed,
                               cell.entity.name, cell.perturbation, spec.scaling, evaluation,
                               spec.execution.cell_time_limit, cell.entity, cached,
-                              constant_channels=spec.constant_channels))  # fmt: skip
+                              constant_channels=spec.constant_channels,
+                              numerics=spec.execution.numerics))  # fmt: skip
     return tasks
 
 

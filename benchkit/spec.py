@@ -13,6 +13,8 @@ Layout (every key is checked; unknown keys are errors)::
     workers = 0                       # 0 = one per available CPU core
     scheduler = ""                    # dask scheduler address; "" = a local cluster on loopback
     cell_time_limit = 600.0           # seconds per cell; a slower cell is marked "timeout"
+    numerics = "pinned"               # pinned | fast: one numeric path on every x86-64 worker,
+                                      #   or each machine's fastest (see benchkit.numerics)
 
     [thresholds]
     strategies = ["oracle", "pot", "quantile"]   # and/or "alert-budget"
@@ -71,6 +73,7 @@ from benchkit.windows import CONSTANT_CHANNEL_MODES
 SCALINGS = ("zscore", "minmax", "none")
 DEFAULT_CONSTANT_CHANNELS = "keep"
 EXECUTORS = ("local", "dask")
+NUMERICS_MODES = ("pinned", "fast")  # benchkit.numerics.MODES (the spec imports no runtime code)
 STRATEGIES = ("oracle", "pot", "quantile", "alert-budget")
 DEFAULT_STRATEGIES = ("oracle", "pot", "quantile")
 BUDGET_UNITS = ("day", "1000-steps")
@@ -225,12 +228,14 @@ class ThresholdSpec:
 
 @dataclass(frozen=True)
 class ExecutionSpec:
-    """``[execution]``: executor, workers (0 = available cores), scheduler, cell time limit."""
+    """``[execution]``: executor, workers (0 = available cores), scheduler, cell time limit and
+    the numeric path of the workers (``pinned`` or ``fast``, :mod:`benchkit.numerics`)."""
 
     executor: str = "local"
     workers: int = 0
     scheduler: str = ""
     cell_time_limit: float = 600.0
+    numerics: str = "pinned"
 
     def to_dict(self) -> dict[str, Any]:
         return dataclasses.asdict(self)
@@ -382,7 +387,9 @@ def parse_evaluation(data: dict) -> tuple[ThresholdSpec, dict[str, Any]]:
 
 
 def _execution(t: dict) -> ExecutionSpec:
-    _no_unknown(t, ("executor", "workers", "scheduler", "cell_time_limit"), "execution")
+    _no_unknown(
+        t, ("executor", "workers", "scheduler", "cell_time_limit", "numerics"), "execution"
+    )
     d = ExecutionSpec()
     limit = _number(t.get("cell_time_limit", d.cell_time_limit), "execution.cell_time_limit")
     if limit <= 0:
@@ -392,6 +399,7 @@ def _execution(t: dict) -> ExecutionSpec:
         workers=_integer(t.get("workers", d.workers), "execution.workers", low=0),
         scheduler=_text(t, "scheduler", d.scheduler, where="execution.scheduler"),
         cell_time_limit=limit,
+        numerics=_choice(t.get("numerics", d.numerics), NUMERICS_MODES, "execution.numerics"),
     )
 
 

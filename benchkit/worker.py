@@ -8,8 +8,10 @@ Time limits: a watcher thread raises :class:`CellTimeout` in the thread running 
 limit, and again every half second until the cell stops (this interrupts Python code between
 bytecodes, not a single long C call).
 
-Threads: every cell runs with one BLAS/OpenMP thread and one torch thread, in every executor, so
-that a cell's result does not depend on where or beside what it ran.
+Threads and numerics: every cell runs with one BLAS/OpenMP thread and one torch thread, in every
+executor, on the numeric path its spec asks for (:mod:`benchkit.numerics`), so that a cell's
+result does not depend on where or beside what it ran. A worker that is not on that path (its
+environment came after its libraries loaded) fails its cells with a message saying so.
 """
 
 from __future__ import annotations
@@ -24,7 +26,7 @@ from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
-from benchkit import registry
+from benchkit import numerics, registry
 from benchkit.data.model import Entity
 from benchkit.protocol import CellResult, CellTask, PeakMemory, run_cell
 
@@ -100,16 +102,28 @@ def limit_threads() -> None:
             torch.set_num_threads(1)
 
 
+_ENTERED: dict[str, dict[str, str]] = {}  # numerics mode -> observed path, once per process
+
+
+def enter_numerics(mode: str) -> dict[str, str]:
+    """:func:`benchkit.numerics.enter_worker` once per process and mode (it raises
+    :class:`~benchkit.numerics.NumericsMismatch` for a worker off the pinned path)."""
+    if mode not in _ENTERED:
+        _ENTERED[mode] = numerics.enter_worker(mode)
+    return _ENTERED[mode]
+
+
 def execute_task(task: CellTask, entity: Entity | None = None) -> CellResult:
     """Run one task in this thread and never raise: failures become a failed or timeout result."""
-    for var in ("OMP_NUM_THREADS", "MKL_NUM_THREADS", "OPENBLAS_NUM_THREADS"):
-        os.environ[var] = "1"  # read by libraries imported later (torch reads it at import)
+    for var, value in numerics.worker_environ(task.numerics).items():
+        os.environ.setdefault(var, value)  # read by libraries loaded later, if not loaded yet
     if entity is not None:
         task.entity = entity
     sys.unraisablehook = _ignore_swallowed_timeouts
     if task.cached_scores is None:
         try:  # import the detector (and the registry's built-ins) outside the time limit
             registry.get(task.detector)
+            enter_numerics(task.numerics)
         except Exception as exc:
             return CellResult(task.key, "failed", error=describe_error(exc))
     limit_threads()  # after the imports: torch may have just been loaded

@@ -10,7 +10,11 @@ Prints, for a 20,000 x 38 train series at the default window and hidden sizes:
 2. scoring throughput in points per second;
 3. peak resident memory while scoring 100,000 and 1,000,000 steps of 38 channels, each in a
    fresh process (so the two peaks are comparable): chunked scoring keeps the extra memory
-   above the input series flat instead of growing with the length.
+   above the input series flat instead of growing with the length;
+4. the cost of the pinned numeric path (``[execution] numerics = "pinned"``, the default):
+   seconds per epoch and scoring seconds of both deep detectors in fresh worker processes
+   started pinned and unpinned ("fast"), alternated, and their ratio pinned / fast.
+   ``--numerics-only`` runs just this part.
 
 The data are an invented scenario (seeded sinusoids plus noise), only for timing.
 Run: ``.venv/bin/python benchmarks/deep_speed.py`` (about 3-5 minutes on 2 cores), or with
@@ -20,6 +24,7 @@ Run: ``.venv/bin/python benchmarks/deep_speed.py`` (about 3-5 minutes on 2 cores
 from __future__ import annotations
 
 import argparse
+import os
 import resource
 import statistics
 import subprocess
@@ -35,7 +40,7 @@ from torch import nn
 ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 
-from benchkit import registry  # noqa: E402
+from benchkit import numerics, registry  # noqa: E402
 from benchkit.windows import sliding_windows  # noqa: E402
 from detectors._torch import (  # noqa: E402
     available_cores,
@@ -150,12 +155,62 @@ def scoring_memory(path: Path, name: str, n: int, threads: int) -> tuple[float, 
     return float(before), float(peak), float(seconds)
 
 
+def numerics_child(mode: str) -> None:
+    """In a worker started with ``mode``'s environment: one timed epoch and one scoring pass of
+    each deep detector; prints ``name epoch_s score_s`` lines."""
+    numerics.enter_worker(mode)
+    train = invented_series(20_000, seed=1)
+    test = invented_series(20_000, seed=2)
+    for name in ("factorized-vae", "lstm-vae"):
+        det = registry.create(name, max_epochs=1, patience=1, threads=1)
+        start = time.perf_counter()
+        det.fit(train)
+        fit_s = time.perf_counter() - start
+        start = time.perf_counter()
+        det.score(test)
+        print(name, fit_s, time.perf_counter() - start)
+
+
+def numerics_cost(rounds: int) -> None:
+    """Alternate pinned and fast worker processes; print medians and pinned / fast ratios."""
+    seconds: dict[tuple[str, str, str], list[float]] = {}
+    for _ in range(rounds):
+        for mode in ("fast", "pinned"):
+            done = subprocess.run(
+                [sys.executable, __file__, "--numerics-child", mode],
+                env={**os.environ, **numerics.worker_environ(mode)},
+                capture_output=True, text=True, check=True,
+            )
+            for line in done.stdout.split("\n"):
+                if line.strip():
+                    name, fit_s, score_s = line.split()
+                    seconds.setdefault((name, "fit (1 epoch)", mode), []).append(float(fit_s))
+                    seconds.setdefault((name, "score 20,000", mode), []).append(float(score_s))
+    print(f"\n4. pinned numeric path against each machine's own kernels (\"fast\"); "
+          f"fresh worker processes, median of {rounds}, alternated")
+    print(f"{'model':<16}{'work':<16}{'fast s':>9}{'pinned s':>10}{'pinned/fast':>13}")
+    for name in ("factorized-vae", "lstm-vae"):
+        for work in ("fit (1 epoch)", "score 20,000"):
+            fast = statistics.median(seconds[(name, work, "fast")])
+            pinned = statistics.median(seconds[(name, work, "pinned")])
+            print(f"{name:<16}{work:<16}{fast:>9.3f}{pinned:>10.3f}{pinned / fast:>12.2f}x")
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="smaller sizes, for a smoke run")
     parser.add_argument("--threads", type=int, default=1,
                         help="torch threads (default 1, as the runner gives each cell)")
+    parser.add_argument("--numerics-only", action="store_true",
+                        help="only part 4, the cost of the pinned numeric path")
+    parser.add_argument("--numerics-child", choices=numerics.MODES, help=argparse.SUPPRESS)
     args = parser.parse_args()
+    if args.numerics_child:
+        numerics_child(args.numerics_child)
+        return
+    if args.numerics_only:
+        numerics_cost(3 if args.quick else 5)
+        return
     torch.set_num_threads(args.threads)
     repeats = 2 if args.quick else 5
     lengths = (20_000, 100_000) if args.quick else (100_000, 1_000_000)
@@ -200,6 +255,7 @@ def main() -> None:
                       f"{peak - before:>13.0f}{seconds:>9.1f}")
     own = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
     print(f"\n(this process peaked at {own:.0f} MiB; 'before' includes the input series)")
+    numerics_cost(3 if args.quick else 5)
 
 
 if __name__ == "__main__":

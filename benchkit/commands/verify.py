@@ -1,7 +1,10 @@
 """``benchkit verify SCORECARD``: re-run a scorecard's spec and compare every metric.
 
 Exit status 0 when every value agrees within the tolerance, 1 when some differ, 2 for bad input
-(missing or malformed file, a digest that does not match, an invalid spec).
+(missing or malformed file, a digest that does not match, an invalid spec). Where the numeric
+environments differ (another architecture, other library versions, ``numerics = "fast"``), the
+differences are split into those within the scorecard's spread over seeds (a platform change can
+explain them) and those beyond it; the exit status is still 1.
 """
 
 from __future__ import annotations
@@ -10,6 +13,7 @@ import argparse
 from pathlib import Path
 
 from benchkit.report import differences_table, render_table, verify_scorecard
+from benchkit.report.verify import platform_lines
 
 
 def add_parser(subparsers) -> None:
@@ -48,6 +52,8 @@ def run(args: argparse.Namespace) -> int:
     result = verify_scorecard(args.scorecard, args.tolerance, args.fresh, args.out,
                               workers=args.workers, data_root=args.data_root,
                               spec_dir=args.spec_dir)
+    if not args.quiet:
+        print("\n".join(platform_lines(result)))
     if result.reproduced:
         print(f"reproduced: all {result.n_values} values of {result.n_cells} cells agree "
               f"within {result.tolerance:g}")
@@ -57,4 +63,11 @@ def run(args: argparse.Namespace) -> int:
     n_bad = len(result.differences) + len(result.fingerprint_mismatches)
     print(f"not reproduced: {n_bad} values differ beyond {result.tolerance:g} "
           f"({result.n_values} values of {result.n_cells} cells compared)")
+    if not result.exact_expected:
+        n_seedless = sum(d.seed_spread is None for d in result.differences)
+        print(f"platform: {result.n_explained} of them lie within the scorecard's spread over "
+              f"seeds (a platform change can explain them), "
+              f"{n_bad - result.n_explained} do not"
+              + (f" ({n_seedless} have no seed spread: the scorecard holds one seed)"
+                 if n_seedless else ""))
     return 1

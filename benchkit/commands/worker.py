@@ -78,9 +78,9 @@ def main(args: argparse.Namespace) -> int:
     import dask
     from distributed.cli.dask_worker import main as dask_worker
 
-    from benchkit.daskworker import NANNY_CONFIG
+    from benchkit.daskworker import nanny_config
 
-    with dask.config.set(NANNY_CONFIG):
+    with dask.config.set(nanny_config()):
         try:
             dask_worker.main(args=argv, prog_name="benchkit worker", standalone_mode=False)
         except SystemExit as exc:  # dask's command ends with sys.exit on errors

@@ -4,6 +4,15 @@ Cells are matched by cell key; a scorecard cell whose key the re-run lacks is ma
 identifying fields (variant, dataset, entity, seed, perturbation), so changed input data shows up
 as metric differences and a fingerprint mismatch rather than as missing cells. Two values agree
 when both are missing (NaN / null) or when ``|a - b| <= tolerance`` (absolute).
+
+Platforms: before values are compared, the scorecard's numeric environment is compared with the
+re-run's (:func:`benchkit.numerics.exact_agreement_blockers`). Where they cannot give identical
+bits (another architecture, other library versions, ``numerics = "fast"``), every difference is
+still reported, and each is marked as one a platform change can explain when it lies within the
+spread over seeds that the scorecard itself holds for that value (max - min over the seeds of
+the same variant, dataset, entity, perturbation, threshold and metric; needs two or more seeds).
+That spread is measured training variance, not a guessed tolerance. Exit 0 still means exact
+agreement.
 """
 
 from __future__ import annotations
@@ -17,12 +26,14 @@ import numpy as np
 import pandas as pd
 
 from benchkit.errors import DataError
+from benchkit.numerics import exact_agreement_blockers
 from benchkit.report.scorecard import cell_records, load_scorecard
 from benchkit.report.tables import Stat, Table
 from benchkit.spec import parse_spec
 from benchkit.store import DB_NAME, Store
 
 MATCH_FIELDS = ("variant", "dataset", "entity", "seed", "perturbation")
+SPREAD_FIELDS = ("variant", "dataset", "entity", "perturbation")
 
 
 @dataclass(frozen=True)
@@ -35,6 +46,18 @@ class Difference:
     metric: str
     expected: float | str | None
     actual: float | str | None
+    seed_spread: float | None = None
+
+    @property
+    def within_seed_spread(self) -> bool:
+        """True when both values are numbers and differ by at most the scorecard's seed spread."""
+        if self.seed_spread is None:
+            return False
+        if not all(isinstance(v, int | float) and not isinstance(v, bool)
+                   for v in (self.expected, self.actual)):  # fmt: skip
+            return False
+        gap = abs(float(self.actual) - float(self.expected))  # type: ignore[arg-type]
+        return math.isfinite(gap) and gap <= self.seed_spread
 
 
 @dataclass
@@ -48,10 +71,32 @@ class VerifyResult:
     n_values: int
     differences: list[Difference] = field(default_factory=list)
     fingerprint_mismatches: dict[str, tuple[str | None, str | None]] = field(default_factory=dict)
+    blockers: list[str] = field(default_factory=list)
+    """Why exact agreement is not expected here (empty: same numeric environment)."""
 
     @property
     def reproduced(self) -> bool:
+        """Exact agreement (within the tolerance): the only verdict that exits 0."""
         return not self.differences and not self.fingerprint_mismatches
+
+    @property
+    def exact_expected(self) -> bool:
+        return not self.blockers
+
+    def platform_explained(self, d: Difference) -> bool:
+        """A difference a platform change can explain: platforms differ and it lies within the
+        scorecard's spread over seeds."""
+        return bool(self.blockers) and d.within_seed_spread
+
+    @property
+    def n_explained(self) -> int:
+        return sum(self.platform_explained(d) for d in self.differences)
+
+    @property
+    def explained_by_platform(self) -> bool:
+        """Not reproduced exactly, but on another platform and every difference explainable."""
+        return (bool(self.blockers) and not self.fingerprint_mismatches
+                and self.n_explained == len(self.differences))  # fmt: skip
 
 
 def _describe(record: dict) -> str:
@@ -79,6 +124,34 @@ def match_cells(expected: dict[str, dict], actual: dict[str, dict]) -> dict[str,
     }
 
 
+def seed_spreads(records: dict[str, dict]) -> dict[tuple[str, str, str], float]:
+    """Per (cell key, threshold, metric): max - min over the seeds of the same variant, dataset,
+    entity and perturbation, where the records hold two or more seeds with finite values."""
+    rows = [
+        (key, *(str(record.get(f)) for f in SPREAD_FIELDS), threshold, metric,
+         math.nan if value is None else float(value))
+        for key, record in records.items()
+        for threshold, values in record["metrics"].items()
+        for metric, value in values.items()
+    ]  # fmt: skip
+    if not rows:
+        return {}
+    columns = ["cell_key", *SPREAD_FIELDS, "threshold", "metric", "value"]
+    frame = pd.DataFrame(rows, columns=columns)
+    group = [*SPREAD_FIELDS, "threshold", "metric"]
+    finite = frame.dropna(subset=["value"])
+    stats = finite.groupby(group)["value"].agg(["max", "min", "count"])
+    stats = stats[stats["count"] >= 2]
+    spread = (stats["max"] - stats["min"]).rename("spread").reset_index()
+    joined = frame.merge(spread, on=group, how="inner")
+    return {
+        (k, t, m): float(v)
+        for k, t, m, v in joined[["cell_key", "threshold", "metric", "spread"]].itertuples(
+            index=False
+        )
+    }
+
+
 def compare_cells(
     expected: dict[str, dict], actual: dict[str, dict], tolerance: float
 ) -> list[Difference]:
@@ -101,13 +174,15 @@ def compare_cells(
         close = np.abs(a - b) <= tolerance
     bad = ~(both_missing | close) | (merged["side"] == "left_only").to_numpy()
     mapped = {k for k, v in mapping.items() if v is not None}
+    spreads = seed_spreads(expected)
     for row in merged[bad].itertuples(index=False):
         if row.cell_key not in mapped:
             continue  # already reported as a missing cell
         actual_value = None if row.side == "left_only" else row.value_actual
         diffs.append(
             Difference(row.cell_key, _describe(expected[row.cell_key]), row.threshold,
-                       row.metric, row.value_expected, actual_value)
+                       row.metric, row.value_expected, actual_value,
+                       spreads.get((row.cell_key, row.threshold, row.metric)))
         )
     return diffs
 
@@ -169,7 +244,9 @@ def verify_scorecard(
         run_experiment(spec, run_dir, workers=workers, quiet=True, data_root=data_root)
         with Store(run_dir) as store:
             actual = cell_records(store.cells_frame(), store.metrics_frame())
-            fingerprints = store.latest_run().get("fingerprints", {})
+            latest = store.latest_run()
+            fingerprints = latest.get("fingerprints", {})
+            local_numerics = (latest.get("environment") or {}).get("numerics") or {}
     expected = content["cells"]
     mismatched = {
         name: (fp, fingerprints.get(name))
@@ -184,6 +261,9 @@ def verify_scorecard(
         n_values=int(sum(len(v) for r in expected.values() for v in r["metrics"].values())),
         differences=compare_cells(expected, actual, tolerance),
         fingerprint_mismatches=mismatched,
+        blockers=exact_agreement_blockers(
+            (content.get("environment") or {}).get("numerics"), local_numerics
+        ),
     )
 
 
@@ -199,13 +279,31 @@ def differences_table(result: VerifyResult) -> Table:
     for d in result.differences:
         both = isinstance(d.expected, int | float) and isinstance(d.actual, int | float)
         gap = Stat(abs(float(d.actual) - float(d.expected)), digits=6) if both else "-"
-        rows.append((d.cell, d.threshold, d.metric, _value(d.expected), _value(d.actual), gap))
+        spread = "-" if d.seed_spread is None else Stat(d.seed_spread, digits=6)
+        platform = "yes" if result.platform_explained(d) else "no"
+        rows.append((d.cell, d.threshold, d.metric, _value(d.expected), _value(d.actual), gap,
+                     spread, platform))
     for name, (exp, got) in result.fingerprint_mismatches.items():
-        rows.append((name, "-", "fingerprint", exp or "missing", got or "missing", "-"))
+        rows.append((name, "-", "fingerprint", exp or "missing", got or "missing", "-", "-", "no"))
+    notes = [
+        f"cell = {'/'.join(MATCH_FIELDS)}",
+        "seed spread = max - min of the value over the scorecard's seeds (needs two or more)",
+        "platform = yes: the numeric environments differ and the difference lies within the "
+        "seed spread, so a platform change can explain it",
+    ]
     return Table(
         name="verify",
         title=f"Values that differ beyond tolerance {result.tolerance:g} (absolute)",
-        headers=("cell", "threshold", "metric", "scorecard", "re-run", "|difference|"),
+        headers=("cell", "threshold", "metric", "scorecard", "re-run", "|difference|",
+                 "seed spread", "platform"),
         rows=tuple(rows),
-        notes=(f"cell = {'/'.join(MATCH_FIELDS)}",),
+        notes=tuple(notes),
     )
+
+
+def platform_lines(result: VerifyResult) -> list[str]:
+    """What the numeric environments say about exact agreement, for printing before values."""
+    if result.exact_expected:
+        return ["numeric environment: the same path as the scorecard's; exact agreement expected"]
+    return ["numeric environment differs from the scorecard's; exact agreement is not expected:",
+            *(f"  - {reason}" for reason in result.blockers)]

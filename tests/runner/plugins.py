@@ -116,3 +116,23 @@ class Stuck(_Base):
 
     def score(self, series: np.ndarray) -> np.ndarray:  # pragma: no cover - never reached
         return self._distance(series)
+
+
+class PathRecorder(_Base):
+    """Writes the numeric path its worker process is on (``benchkit.numerics.observe``) as JSON
+    to the file named by ``record``, then scores like the others."""
+
+    name = "test-path-recorder"
+    params = (*_Base.params, Param("record", str, "", "file to write the observed path to"))
+
+    def fit(self, train: np.ndarray) -> PathRecorder:
+        import json
+
+        from benchkit import numerics
+
+        with open(self.record, "w", encoding="utf-8") as fh:
+            json.dump(numerics.observe(), fh)
+        return super().fit(train)
+
+    def score(self, series: np.ndarray) -> np.ndarray:
+        return self._distance(series)
