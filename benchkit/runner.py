@@ -333,7 +333,9 @@ def run_experiment(
     fingerprints = {(d.name, e.name): e.fingerprint() for d in datasets for e in d.entities}
     with contextlib.ExitStack() as stack:
         session = (
-            stack.enter_context(DaskSession(workers, scheduler, spec.execution.numerics)) if executor == "dask" else None
+            stack.enter_context(DaskSession(workers, scheduler, spec.execution.numerics))
+            if executor == "dask"
+            else None
         )
         stack.enter_context(writer_lock(out))
         store = stack.enter_context(Store(out, create=True))
