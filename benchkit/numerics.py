@@ -11,13 +11,21 @@ training amplifies the last bit into visible metric differences.
 =========================  ==================================  =================================
 library                    setting                             path on any x86-64-v3 processor
 =========================  ==================================  =================================
-torch (ATen CPU kernels)   ``ATEN_CPU_CAPABILITY=default``     the baseline build, no AVX2/512
-MKL (torch's BLAS)         ``MKL_CBWR=COMPATIBLE``             MKL's vendor-neutral branch
+torch (ATen CPU kernels)   ``ATEN_CPU_CAPABILITY=avx2``        its AVX2 kernels, never AVX-512
+MKL (torch's BLAS)         ``MKL_CBWR=COMPATIBLE``             MKL's vendor-neutral SSE2 branch
 oneDNN (torch)             off in the worker, ISA capped       not used
 OpenBLAS (numpy, scipy)    ``OPENBLAS_CORETYPE=Haswell``       the same kernels on Intel and AMD
 numpy SIMD dispatch        ``NPY_DISABLE_CPU_FEATURES``        at most X86_V3 (AVX2), no AVX-512
 threads                    one per worker                      no reduction-order changes
 =========================  ==================================  =================================
+
+The three SIMD-level switches share one level, x86-64-v3 (AVX2 and FMA, every x86 server
+processor of the last decade): the same compiled code runs on Intel and AMD alike. MKL is the
+exception: Intel's oneMKL developer guide ("Specifying Code Branches", "Getting Started with
+Conditional Numerical Reproducibility") names ``COMPATIBLE`` as its branch for any processor and
+says a named branch such as ``AVX2`` falls back to ``AUTO`` on non-Intel processors, so only
+``COMPATIBLE`` gives the same MKL results across vendors. A processor below x86-64-v3 cannot run
+the pinned path (its workers refuse their cells); use ``"fast"`` there.
 
 These are read when each library loads, so they are set in the worker's environment before the
 worker process starts (:func:`worker_environ`); :func:`enter_worker` then switches oneDNN off,
@@ -46,7 +54,7 @@ THREAD_ENVIRON = {"OMP_NUM_THREADS": "1", "MKL_NUM_THREADS": "1", "OPENBLAS_NUM_
 NUMPY_DISABLED = ("X86_V4", "AVX512_ICL", "AVX512_SPR")
 
 PINNED_ENVIRON = {
-    "ATEN_CPU_CAPABILITY": "default",
+    "ATEN_CPU_CAPABILITY": "avx2",
     "MKL_CBWR": "COMPATIBLE",
     "ONEDNN_MAX_CPU_ISA": "SSE41",
     "DNNL_MAX_CPU_ISA": "SSE41",
@@ -55,7 +63,7 @@ PINNED_ENVIRON = {
 }
 
 PINNED_PATH = {
-    "torch_kernels": "DEFAULT",
+    "torch_kernels": "AVX2",
     "mkl_cbwr": "COMPATIBLE",
     "onednn": "off",
     "openblas": "Haswell",

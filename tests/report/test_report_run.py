@@ -159,5 +159,17 @@ REFERENCE = Path(__file__).resolve().parents[2] / "results" / "reference" / "sco
 
 @pytest.mark.skipif(not REFERENCE.is_file(), reason=f"{REFERENCE} is not committed yet")
 def test_committed_reference_scorecard_verifies(capsys):
-    # re-runs the default experiment (a few minutes on 2 cores) in a temporary folder
-    assert main(["verify", str(REFERENCE), "--tolerance", "1e-9"]) == 0, capsys.readouterr().out
+    # Re-runs the default experiment (a few minutes on 2 cores) in a temporary folder. On any
+    # x86-64-v3 machine with the pinned package versions (scripts/constraints.txt) the numeric
+    # path is the reference's, so every value must agree exactly; elsewhere (another
+    # architecture, other versions) exact agreement is impossible and every difference must lie
+    # within the reference's own spread over its seeds (benchkit.report.verify).
+    from benchkit.report.verify import verify_scorecard
+
+    result = verify_scorecard(REFERENCE, 1e-9)
+    lines = [f"{d.cell} {d.threshold} {d.metric}: {d.expected} -> {d.actual}"
+             for d in result.differences[:20]]  # fmt: skip
+    if result.exact_expected:
+        assert result.reproduced, "\n".join(lines)
+    else:
+        assert result.explained_by_platform, "\n".join(result.blockers + lines)

@@ -25,8 +25,8 @@ if __name__ == "__main__":
     rng = np.random.default_rng(3)
     series = np.column_stack([np.sin(t / 17), np.cos(t / 29), np.sin(t / 7) ** 2, t % 50 / 50])
     series = series + 0.05 * rng.standard_normal(series.shape)
-    det = get("lstm-vae")(window=16, hidden_size=16, latent_size=4, max_epochs=3,
-                          max_train_windows=256, seed=0, threads=1)
+    det = get("lstm-vae")(window=16, hidden_size=16, latent_size=4, max_epochs=2,
+                          max_train_windows=128, seed=0, threads=1)
     det.fit(series[:600])
     scores = det.score(series[600:])
     digest = hashlib.sha256(np.ascontiguousarray(scores).tobytes()).hexdigest()
