@@ -24,6 +24,9 @@ from benchkit.protocol import CellResult, CellTask
 from benchkit.worker import enter_numerics, execute_task
 from benchkit.worker_process import WorkerProcess
 
+READY = "ready"
+START_SECONDS = 300.0  # a worker that has not loaded its libraries by then is replaced
+
 
 def hard_kill_grace(limit: float) -> float:
     """Seconds past a cell's time limit after which the local pool kills its worker process:
@@ -34,13 +37,6 @@ def hard_kill_grace(limit: float) -> float:
 def _worker_main(conn: Any) -> None:
     """Loop of a local worker process: receive a task, send its result, until told to stop."""
     parent = os.getppid()
-    mode = os.environ.get("BENCHKIT_WORKER_NUMERICS", numerics.DEFAULT_MODE)
-    try:  # load the built-ins once, on the numeric path set at the worker's start
-        for module in registry.BUILTIN_MODULES:
-            __import__(module)
-        enter_numerics(mode)
-    except Exception:  # noqa: S110 - each cell reports such a failure itself
-        pass
 
     def watch_parent() -> None:
         # a SIGKILLed driver must not leave workers behind: the kernel re-parents them at once
@@ -50,6 +46,14 @@ def _worker_main(conn: Any) -> None:
         os._exit(1)
 
     threading.Thread(target=watch_parent, daemon=True).start()
+    mode = os.environ.get("BENCHKIT_WORKER_NUMERICS", numerics.DEFAULT_MODE)
+    try:  # load the built-ins once, on the numeric path set at the worker's start
+        for module in registry.BUILTIN_MODULES:
+            __import__(module)
+        enter_numerics(mode)
+    except Exception:  # noqa: S110 - each cell reports such a failure itself
+        pass
+    conn.send(READY)  # cells' time limits start only now, not while the worker loads
     while True:
         try:
             message = conn.recv()
@@ -68,6 +72,8 @@ class _Worker:
         self.conn = self.process.conn
         self.task: CellTask | None = None
         self.deadline = 0.0
+        self.ready = False
+        self.start_deadline = time.monotonic() + START_SECONDS
 
     def kill(self) -> None:
         """Stop the process at once (it may be stuck in native code)."""
@@ -96,19 +102,24 @@ def _drive(pool: list[_Worker], queue: deque) -> Iterator[CellResult]:
     try:
         while True:
             for i, w in enumerate(pool):
-                if w.task is None and queue:
-                    pool[i] = _dispatch(w, queue.popleft())
+                if w.ready and w.task is None and queue:
+                    pool[i] = _dispatch(w, queue)
             busy = [w for w in pool if w.task is not None]
-            if not busy:
+            starting = [w for w in pool if not w.ready]
+            if not busy and not (starting and queue):
                 return
-            first_deadline = min(w.deadline for w in busy)
-            timeout = (
-                max(0.0, first_deadline - time.monotonic())
-                if math.isfinite(first_deadline)
-                else None
-            )
-            ready = set(wait([w.conn for w in busy] + [w.process.sentinel for w in busy], timeout))
+            watched = busy + starting
+            first = min([w.deadline for w in busy] + [w.start_deadline for w in starting])
+            timeout = max(0.0, first - time.monotonic()) if math.isfinite(first) else None
+            ready = set(wait([w.conn for w in watched] + [w.process.sentinel for w in watched],
+                             timeout))  # fmt: skip
             for i, w in enumerate(pool):
+                if not w.ready:
+                    failed = _start_check(w, ready, queue)
+                    if failed is not None:
+                        pool[i] = _Worker(w.mode)
+                        yield failed
+                    continue
                 if w.task is None:
                     continue
                 result, replace = _collect(w, ready)
@@ -124,17 +135,40 @@ def _drive(pool: list[_Worker], queue: deque) -> Iterator[CellResult]:
         _shut_down(pool)
 
 
-def _dispatch(w: _Worker, task: CellTask) -> _Worker:
-    """Send ``task`` to idle worker ``w`` (replaced first if it died while idle)."""
+def _start_check(w: _Worker, ready: set, queue: deque) -> CellResult | None:
+    """Mark a starting worker ready when it says so. One that died or took too long to start is
+    killed, and the next queued cell fails with the reason (so a worker that cannot start
+    cannot loop forever); returns that failed result, else None."""
+    if w.conn in ready:
+        try:
+            if w.conn.recv() == READY:
+                w.ready = True
+                return None
+        except (EOFError, OSError):
+            pass
+    elif w.process.sentinel not in ready and time.monotonic() < w.start_deadline:
+        return None
+    w.kill()
+    if not queue:
+        return None
+    task = queue.popleft()
+    return CellResult(task.key, "failed",
+                      error=f"worker process could not start (exit code {w.process.exitcode})")
+
+
+def _dispatch(w: _Worker, queue: deque) -> _Worker:
+    """Send the next queued task to ready idle worker ``w``; a worker that died while idle is
+    replaced instead (the task waits until the new one is ready)."""
     if not w.process.is_alive():
         w.kill()
-        w = _Worker(w.mode)
+        return _Worker(w.mode)
+    task = queue.popleft()
     try:
         w.conn.send(task)
-    except OSError:  # it died just now: one fresh worker, one more try
+    except OSError:  # it died just now: the task waits for a fresh worker
+        queue.appendleft(task)
         w.kill()
-        w = _Worker(w.mode)
-        w.conn.send(task)
+        return _Worker(w.mode)
     w.task = task
     w.deadline = time.monotonic() + task.time_limit + hard_kill_grace(task.time_limit)
     return w

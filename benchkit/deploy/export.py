@@ -128,13 +128,14 @@ def _refit(spec: ExperimentSpec, cell: dict[str, Any], entity: Entity, model_pat
     params = json.loads(cell["params"])
     key = cell_key(cell["detector"], params, cell["entity_fingerprint"], entity.name,
                    int(cell["seed"]), CLEAN.key(), cell["scaling"],
-                   spec.constant_channels)  # fmt: skip
+                   spec.constant_channels, spec.execution.numerics)  # fmt: skip
     if key != cell["cell_key"]:
         raise BenchkitInputError(f"cell {cell['cell_key']}: its key does not match its record")
     evaluation = Evaluation(spec.thresholds, dict(spec.metrics))
     task = CellTask(key, cell["detector"], params, int(cell["seed"]), entity.name, CLEAN,
                     cell["scaling"], evaluation, spec.execution.cell_time_limit, entity,
-                    save_to=str(model_path), constant_channels=spec.constant_channels)  # fmt: skip
+                    save_to=str(model_path), constant_channels=spec.constant_channels,
+                    numerics=spec.execution.numerics)  # fmt: skip
     result = next(iter(run_local([task], 1)))
     if result.status != "ok":
         raise NotReproduced(f"refit of cell {key} {result.status}: {result.error}")
