@@ -56,6 +56,11 @@ def main(argv: list[str] | None = None) -> int:
         parser.print_help()
         return 2
     try:
+        mode_of = getattr(args, "numerics_of", None)
+        if mode_of is not None and argv is None:  # a real `benchkit` process, not a caller's
+            from benchkit import numerics
+
+            numerics.restart_on_path(mode_of(args), ["-m", "benchkit.cli", *sys.argv[1:]])
         with warnings.catch_warnings():
             warnings.showwarning = _data_warnings_as_lines(warnings.showwarning)
             return int(args.func(args) or 0)

@@ -76,6 +76,10 @@ EXACT_FIELDS = ("mode", "machine", "path", "torch", "numpy", "scipy", "scikit-le
                 "openblas", "mkl")
 
 
+PROCESS_MARK = "BENCHKIT_PROCESS_NUMERICS"
+"""Set in a process started on a numeric path by :func:`restart_on_path` (its value: the mode)."""
+
+
 class NumericsMismatch(RuntimeError):
     """A worker whose libraries did not take the path its cells ask for."""
 
@@ -149,6 +153,26 @@ def enter_worker(mode: str = DEFAULT_MODE) -> dict[str, str]:
                 "`benchkit worker` or its preload)"
             )
     return seen
+
+
+def restart_on_path(mode: str, argv: list[str]) -> None:
+    """Replace this process by ``python argv...`` started on ``mode``'s numeric path.
+
+    For commands that compute in their own process what a worker computed (``apply`` and
+    ``export-model`` score a fitted detector): the libraries read the path only when they load,
+    so the process is started again with it. Returns only when nothing needs doing: ``"fast"``,
+    or this process was already started on the path (then it finishes the worker's set-up with
+    :func:`enter_worker`). Never call it in a caller's own process (a notebook, a test run).
+    """
+    if check_mode(mode) == "fast":
+        return
+    if os.environ.get(PROCESS_MARK) == mode:
+        enter_worker(mode)
+        return
+    sys.stdout.flush()
+    sys.stderr.flush()
+    env = {**os.environ, **worker_environ(mode), PROCESS_MARK: mode}
+    os.execve(sys.executable, [sys.executable, *argv], env)
 
 
 def observe() -> dict[str, str]:

@@ -51,7 +51,22 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
                    help="a malformed row stops the run (default) or is skipped with a warning")
     p.add_argument("--culprits", type=int, default=3, metavar="K",
                    help="top KPIs listed per alert, where the detector attributes (default 3)")
-    p.set_defaults(func=main)
+    p.set_defaults(func=main, numerics_of=bundle_numerics)
+
+
+def bundle_numerics(args: argparse.Namespace) -> str:
+    """The numeric path the bundle's scores were computed on (pinned unless it says fast): the
+    command runs on it, so that scores agree with the run's bit for bit."""
+    import json
+    from pathlib import Path
+
+    from benchkit.deploy.bundle import MANIFEST
+
+    try:
+        manifest = json.loads((Path(args.bundle) / MANIFEST).read_text(encoding="utf-8"))
+        return str((manifest.get("numerics") or {}).get("mode") or "pinned")
+    except (OSError, ValueError, AttributeError):
+        return "pinned"  # the command itself reports a bad bundle
 
 
 def _update(args: argparse.Namespace, strategy: str) -> str:

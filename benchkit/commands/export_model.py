@@ -32,7 +32,20 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
     p.add_argument("--dataset", metavar="NAME", help="dataset name, when the entity is ambiguous")
     p.add_argument("--data-root", metavar="DIR", help="root folder for dataset files")
     p.add_argument("--quiet", action="store_true", help="do not print the bundle path")
-    p.set_defaults(func=main)
+    p.set_defaults(func=main, numerics_of=run_numerics)
+
+
+def run_numerics(args: argparse.Namespace) -> str:
+    """The numeric path of the run's cells (pinned unless its spec says fast): the command runs
+    on it, so that its checks against the cached scores compare like with like."""
+    from benchkit.store import Store
+
+    try:
+        with Store(args.out) as store:
+            spec = store.latest_run()["spec"]
+        return str(spec.get("execution", {}).get("numerics", "pinned"))
+    except Exception:  # noqa: BLE001 - the command itself reports a bad results folder
+        return "pinned"
 
 
 def _seed(text: str | None) -> int | None:

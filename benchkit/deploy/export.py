@@ -197,13 +197,11 @@ def constant_rule(mode: str, scaled_train: np.ndarray) -> dict[str, Any]:
     return rule
 
 
-def _numerics() -> Any:
-    """The numeric environment (``benchkit.numerics.describe()`` where it exists)."""
-    try:
-        from benchkit import numerics  # landed by the pinned-numerics work
-    except ImportError:
-        return None
-    return numerics.describe()
+def _numerics(mode: str) -> Any:
+    """The numeric environment the run's cells (and so the bundle's scores) were computed in."""
+    from benchkit import numerics
+
+    return numerics.describe(mode)
 
 
 def _manifest(spec, cell, dataset, entity, detector, threshold, run, scaler, cached, agreement):
@@ -255,7 +253,7 @@ def _manifest(spec, cell, dataset, entity, detector, threshold, run, scaler, cac
         + hashlib.sha256(canonical_json(spec.to_dict()).encode()).hexdigest(),
         "versions": {"benchkit": __version__, "torch": torch_version(),
                      "numpy": np.__version__},  # fmt: skip
-        "numerics": _numerics(),
+        "numerics": _numerics(spec.execution.numerics),
         "environment": environment(),
         "run_environment": run["environment"],
     }
