@@ -111,8 +111,8 @@ def test_fast_mode_keeps_the_machine_path_and_says_so(tmp_path):
 
 def test_numerics_is_part_of_the_cell_key_and_validated(tmp_path, capsys):
     args = ("random", {"seed": 0}, "f" * 64, "node", 0, "none", "zscore")
-    assert cell_key(*args, "pinned") != cell_key(*args, "fast")
-    assert cell_key(*args) == cell_key(*args, "pinned")
+    assert cell_key(*args, numerics="pinned") != cell_key(*args, numerics="fast")
+    assert cell_key(*args) == cell_key(*args, numerics="pinned")
     with pytest.raises(SpecError, match=r"execution\.numerics"):
         tiny_spec([{"name": "random"}], execution={"numerics": "exact"})
     spec = write_spec(tmp_path / "bad.toml", [{"name": "random"}],
