@@ -64,14 +64,22 @@ def test_other_platform_differences_are_split_by_the_seed_spread(tiny_run, tmp_p
         assert got[(key, "oracle", "f1")] == pytest.approx(want[ident], abs=1e-12)
 
     # The spreads are the scorecard's, changed values included. Seed 0 of one cell moves by half
-    # its spread (stays explainable); seed 0 of another moves to the far side of seed 1, by
-    # 3g + 0.01 where g = v0 - v1, leaving a spread of only 2g + 0.01 (not explainable).
+    # its spread away from seed 1 (spread 1.5 s, explainable); seed 0 of another moves to the far
+    # side of seed 1, by 3g + 0.01 where g = v0 - v1, leaving a spread of only 2g + 0.01 (not
+    # explainable).
     (small_key, s1), (big_key, _) = _movable(content)
     cells = content["cells"]
-    cells[small_key]["metrics"]["oracle"]["f1"] += s1 / 2
-    sibling = next(r for r in cells.values() if r["seed"] == 1 and all(
-        r[f] == cells[big_key][f] for f in ("variant", "entity", "perturbation")))
-    v0, v1 = cells[big_key]["metrics"]["oracle"]["f1"], sibling["metrics"]["oracle"]["f1"]
+
+    def seed_one(key):
+        return next(r for r in cells.values() if r["seed"] == 1 and all(
+            r[f] == cells[key][f] for f in ("variant", "entity", "perturbation")))
+
+    def f1(record):
+        return record["metrics"]["oracle"]["f1"]
+
+    v0, v1 = f1(cells[small_key]), f1(seed_one(small_key))
+    cells[small_key]["metrics"]["oracle"]["f1"] = v0 + math.copysign(s1 / 2, v0 - v1)
+    v0, v1 = f1(cells[big_key]), f1(seed_one(big_key))
     gap = v0 - v1
     cells[big_key]["metrics"]["oracle"]["f1"] = v1 - 2 * gap - math.copysign(0.01, gap)
     content["environment"]["numerics"]["machine"] = "aarch64"  # as if made on an Arm server
