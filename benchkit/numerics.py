@@ -290,3 +290,8 @@ def _cpu_name() -> str:
     except OSError:
         pass
     return platform.processor() or "unknown"
+
+
+if __name__ == "__main__":  # `python -m benchkit.numerics [MODE]`: the worker environment
+    for name, value in worker_environ(sys.argv[1] if len(sys.argv) > 1 else DEFAULT_MODE).items():
+        print(f"{name}={value}" if " " not in value else f"{name}='{value}'")
