@@ -59,7 +59,7 @@ PINNED_ENVIRON = {
     "ONEDNN_MAX_CPU_ISA": "SSE41",
     "DNNL_MAX_CPU_ISA": "SSE41",
     "OPENBLAS_CORETYPE": "Haswell",
-    "NPY_DISABLE_CPU_FEATURES": " ".join(NUMPY_DISABLED),
+    "NPY_DISABLE_CPU_FEATURES": ",".join(NUMPY_DISABLED),  # no spaces: safe in `env $(...)`
 }
 
 PINNED_PATH = {
@@ -294,4 +294,4 @@ def _cpu_name() -> str:
 
 if __name__ == "__main__":  # `python -m benchkit.numerics [MODE]`: the worker environment
     for name, value in worker_environ(sys.argv[1] if len(sys.argv) > 1 else DEFAULT_MODE).items():
-        print(f"{name}={value}" if " " not in value else f"{name}='{value}'")
+        print(f"{name}={value}")
