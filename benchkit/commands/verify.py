@@ -52,7 +52,7 @@ def run(args: argparse.Namespace) -> int:
     result = verify_scorecard(args.scorecard, args.tolerance, args.fresh, args.out,
                               workers=args.workers, data_root=args.data_root,
                               spec_dir=args.spec_dir)
-    if not args.quiet:
+    if not args.quiet and not (result.reproduced and result.exact_expected):
         print("\n".join(platform_lines(result)))
     if result.reproduced:
         print(f"reproduced: all {result.n_values} values of {result.n_cells} cells agree "
