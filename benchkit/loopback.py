@@ -32,7 +32,8 @@ class LoopbackCluster:
     ----------
     workers : one entry per worker command: ``"benchkit"`` (``benchkit worker --nworkers 1``)
         or ``"dask"`` (a plain ``dask worker --nworkers 1 --nthreads 1``, without benchkit's
-        preload: benchkit's worker plug-in has to set it up).
+        preload: benchkit's worker plug-in has to set it up; started with the pinned numeric
+        environment, as the README tells users, since Dask loads numpy before any plug-in).
     env : extra environment variables for every process (``PYTHONPATH`` for plug-ins, say).
     start_timeout : seconds to wait for the scheduler and every worker to connect.
     idle_timeout : the scheduler stops after this many seconds without work, and its workers
@@ -107,7 +108,12 @@ class LoopbackCluster:
             else:
                 raise ValueError(f"worker kind {kind!r}: expected 'benchkit' or 'dask'")
             argv += ["--nworkers", "1", "--host", "127.0.0.1", "--death-timeout", "30"]
-            self._spawn(argv, self.env, f"worker-{i}-{kind}")
+            env = self.env
+            if kind == "dask":  # as the README tells users: the pinned environment from the start
+                from benchkit import numerics
+
+                env = {**self.env, **numerics.worker_environ()}
+            self._spawn(argv, env, f"worker-{i}-{kind}")
         from distributed import Client
 
         with Client(self.address, timeout="30s") as client:
