@@ -91,13 +91,9 @@ def _restore_malloc_thresholds() -> bool:
 
 
 def _pin_numerics() -> dict[str, Any]:
-    """Pinned numerics of :mod:`benchkit.numerics` where that module exists, else thread limits."""
-    try:
-        from benchkit import numerics
-    except ImportError:
-        for var in THREAD_ENV:
-            os.environ[var] = "1"
-        return {var: "1" for var in THREAD_ENV}
+    """The pinned numerics' environment (:func:`benchkit.numerics.pin_process`), set here."""
+    from benchkit import numerics
+
     return dict(numerics.pin_process())
 
 

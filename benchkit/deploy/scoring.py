@@ -14,7 +14,6 @@ depend on more than its window).
 from __future__ import annotations
 
 import os
-import sys
 from collections import deque
 from typing import Any
 
@@ -35,14 +34,13 @@ STREAM_TOLERANCE = 1e-5  # float32 rounding (torch); position-dependent scores d
 
 
 def pin_numerics() -> None:
-    """One BLAS/OpenMP thread and one torch thread, as in the runner's workers."""
-    for var in ("OMP_NUM_THREADS", "MKL_NUM_THREADS", "OPENBLAS_NUM_THREADS"):
-        os.environ[var] = "1"
-    from threadpoolctl import threadpool_limits
+    """One BLAS/OpenMP thread and one torch thread, as in the runner's workers (the same
+    variables and limits: :data:`benchkit.numerics.THREAD_ENVIRON`, :func:`limit_threads`)."""
+    from benchkit.numerics import THREAD_ENVIRON
+    from benchkit.worker import limit_threads
 
-    threadpool_limits(1)
-    if "torch" in sys.modules:
-        sys.modules["torch"].set_num_threads(1)
+    os.environ.update(THREAD_ENVIRON)
+    limit_threads()
 
 
 def batch_scores(detector: Any, scaled_context: np.ndarray, scaled: np.ndarray) -> np.ndarray:
