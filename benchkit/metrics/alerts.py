@@ -6,19 +6,22 @@ and is *true* when that span overlaps a labelled event, *false* otherwise. (With
 the span is the run itself; with a larger gap, an alert whose runs straddle a short event is true.)
 
 :func:`alert_curve` gives, for every distinct threshold at once, the event recall and the number of
-false alerts, from one sort of the scores into *levels* (level ``k`` predicts the steps whose
-level is ``<= k``). The counting rests on three facts:
+false alerts, from one sort of the scores. The counting rests on three facts:
 
-- step ``t`` starts an alert exactly at the levels ``level[t] <= k < min(level[t - gap - 1 ..
-  t - 1])`` (predicted, and none of the ``gap + 1`` steps before it is);
+- step ``t`` starts an alert exactly at the thresholds ``window[t] < θ <= score[t]``, where
+  ``window[t]`` is the highest score among the ``gap + 1`` steps before it (``-inf`` before the
+  series): so each start adds 1 at its own score and takes 1 away at ``window[t]``, and with
+  ``gap = 0`` that is the score of the step before, known by position without any search;
 - an alert that starts on a labelled step is true; one that starts in the normal stretch before
   an event is true exactly when it runs into that event, and at most one alert per stretch can;
-- that alert exists over one interval of levels: from the lowest level at which a predicted step
-  of the stretch is joined to the event, up to the level at which no window of ``gap + 1``
-  unpredicted steps meets the stretch any more (the alert then began before the stretch).
+- that alert exists over one interval of thresholds: up to the highest threshold at which a
+  predicted step of the stretch is joined to the event, and above the threshold at which no
+  window of ``gap + 1`` unpredicted steps meets the stretch any more (the alert then began
+  before the stretch).
 
-So false alerts = alert starts on unlabelled steps minus one per stretch over its interval, and
-cumulative counts over the levels give them at every threshold in O(n log n).
+So false alerts = alert starts on unlabelled steps minus one per stretch over its interval; the
++1s and -1s, laid out in the order of the sorted scores, summed cumulatively and read at the last
+step of each distinct score, give them at every threshold in O(n log n).
 """
 
 from __future__ import annotations
@@ -28,7 +31,7 @@ from typing import NamedTuple
 import numpy as np
 
 from benchkit.metrics.event_level import delays_of
-from benchkit.metrics.events import runs_of, segment_sums
+from benchkit.metrics.events import runs_of, segment_max, segment_sums
 from benchkit.metrics.inputs import MetricInputError, binary_pair, scores_and_labels
 
 SECONDS_PER_DAY = 86_400.0
@@ -91,140 +94,140 @@ def count_alerts(pred: object, labels: object, merge_gap: int = 0) -> tuple[int,
 # ------------------------------------------------------------------------------ the curve
 
 
-def dense_levels(scores: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Distinct finite scores descending, and each step's level: the index of its score there.
-
-    ``-inf`` gets the level ``len(thresholds)`` (never predicted). See :func:`_levels`.
-    """
-    thresholds, level, _ = _levels(scores)
-    return thresholds, level
+LOWEST = np.finfo(np.float64).min
 
 
-def _levels(scores: np.ndarray) -> tuple[np.ndarray, np.ndarray, bool]:
-    """:func:`dense_levels`, and whether all scores are distinct (every level used once).
+def ascending_order(
+    scores: np.ndarray, codes: np.ndarray | None = None
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Sort ``scores`` ascending, exactly, carrying a 2-bit code per step along.
 
-    ``-inf`` gets the level ``len(thresholds)`` (never predicted). One sort of int64 words, each
-    the score's order-preserving key (its IEEE 754 bits, negatives reflected, -0.0 as 0.0) with
-    the lowest bits replaced by the step's index, gives the permutation. Neighbours in that order
-    whose upper parts agree (ties, or scores differing only in the replaced bits) are the only
-    ones whose scores are read back: runs of them that hold different scores are put in order,
-    and equal scores share a level. The thresholds are then written through the levels.
+    Parameters
+    ----------
+    scores : 1-D float64, finite or ``-inf``.
+    codes : optional 1-D int8 in 0..3, one per step, moved with its step (0 without).
+
+    Returns
+    -------
+    (order, ascending, carried, ties): the permutation, the sorted scores, ``codes[order]``
+    (int64), and the positions ``i`` where ``ascending[i + 1] == ascending[i]`` (``-0.0`` and
+    ``0.0`` are one score).
+
+    One sort of float64 keys: each score with its lowest bits replaced by ``4 * step + code``
+    (``-inf`` first raised to the lowest finite value, so that no key is NaN). Keys of
+    different scores keep their order unless the scores agree above the replaced bits; the few
+    places where that leaves neighbours out of order are sorted again by score, in windows
+    that widen until nothing is out of order.
     """
     n = len(scores)
-    width = max(int(n - 1).bit_length(), 1)
-    low_bits = np.int64((1 << width) - 1)
-    if n and (scores == 0.0).any():
-        scores = scores + 0.0  # -0.0 becomes 0.0: the two are one score with one key
-    bits = scores.view(np.int64)
-    words = np.right_shift(bits, 63)
-    words &= np.int64(0x7FFF_FFFF_FFFF_FFFF)
-    words ^= bits  # negatives reflected: the int64 order is the float order
-    words &= ~low_bits
-    index = np.arange(n, dtype=np.int64)
-    words |= index
-    words.sort()
-    level = np.empty(n, dtype=np.int64)  # first a scratch buffer, filled at the end
-    np.bitwise_xor(words[1:], words[:-1], out=level[1:])
-    level[1:] &= ~low_bits  # 0 where neighbours share the upper part
-    pairs = np.flatnonzero(level[1:] == 0)  # pair (i, i + 1) for each i in pairs
-    words &= low_bits  # now the permutation
-    unique = True
-    if len(pairs) == 0:  # all scores distinct: the rank is the position
-        count = n
-        np.subtract(n - 1, index, out=index)
-        level[words] = index
-    else:
-        left, right = scores[words[pairs]], scores[words[pairs + 1]]
-        clash = pairs[left != right]
-        if len(clash):  # runs of one upper part holding different scores: order them by score
-            _sort_runs(words, scores, pairs, clash)
-            left, right = scores[words[pairs]], scores[words[pairs + 1]]
-        ties = pairs[left == right] + 1  # positions holding the same score as the one before
-        if len(ties) == 0:
-            count = n
-            np.subtract(n - 1, index, out=index)
-        else:
-            unique = False
-            distinct = np.ones(n, dtype=bool)
-            distinct[ties] = False
-            rank = np.cumsum(distinct, dtype=np.int64, out=index)  # 1-based, ascending
-            count = int(rank[-1])
-            np.subtract(count, rank, out=rank)
-        level[words] = index
-    thresholds = np.empty(count, dtype=np.float64)
-    thresholds[level] = scores
-    if count and thresholds[-1] == -np.inf:
-        thresholds = thresholds[:-1]  # its level is the number of finite values: never predicted
-    return thresholds, level, unique
+    replaced = np.int64((1 << (max(int(n - 1).bit_length(), 1) + 2)) - 1)
+    source = np.maximum(scores, LOWEST) if n and scores.min() == -np.inf else scores
+    keys = np.bitwise_and(source.view(np.int64), ~replaced)
+    order = np.arange(0, 4 * n, 4, dtype=np.int64)  # a scratch buffer until sorted
+    if codes is not None:
+        order += codes
+    keys |= order
+    keys.view(np.float64).sort()
+    np.bitwise_and(keys, replaced, out=order)
+    order >>= 2
+    ascending = np.take(scores, order, mode="clip")
+    keys &= 3  # the carried codes
+    level = np.flatnonzero(ascending[1:] <= ascending[:-1])  # ties, and keys out of order
+    late = level[ascending[level + 1] < ascending[level]]
+    reach = 8
+    while len(late):
+        mended = _sort_near(ascending, late, reach, order, keys)
+        near = np.unique(np.concatenate((mended - 1, mended)).clip(0, max(n - 2, 0)))
+        late = near[ascending[near + 1] < ascending[near]]
+        level = np.union1d(level, near)  # pairs it may have changed are re-read below
+        reach *= 4
+    return order, ascending, keys, level[ascending[level + 1] == ascending[level]]
 
 
-def _sort_runs(order: np.ndarray, scores: np.ndarray, pairs: np.ndarray, clash: np.ndarray):
-    """Sort by score each run of ``order`` chained by ``pairs`` (neighbours sharing the upper
-    part of their words) that holds a clashing pair (different scores)."""
-    linked = np.zeros(len(order) + 1, dtype=np.int8)
-    linked[pairs + 1] = 1  # pair (i, i + 1) joins i + 1 to i
-    edges = np.flatnonzero(np.diff(linked))  # runs of joined elements [start, stop)
-    starts, stops = edges[::2], edges[1::2] + 1
-    keep = np.searchsorted(stops, clash, side="right")
-    starts, stops = starts[np.unique(keep)], stops[np.unique(keep)]
-    sizes = stops - starts
-    where = np.repeat(starts - np.concatenate(([0], np.cumsum(sizes)[:-1])), sizes)
+def _sort_near(
+    values: np.ndarray, late: np.ndarray, reach: int, *alongside: np.ndarray
+) -> np.ndarray:
+    """Sort ``values`` by value within ``reach`` steps of each pair ``(i, i + 1)`` in ``late``,
+    overlapping windows merged, moving the ``alongside`` arrays with them; in place. Returns
+    the positions it sorted."""
+    lo = np.maximum(late - reach, 0)
+    hi = np.minimum(late + reach + 2, len(values))
+    opens = np.concatenate(([True], lo[1:] > hi[:-1]))
+    closes = np.concatenate((opens[1:], [True]))
+    lo, hi = lo[opens], hi[closes]
+    sizes = hi - lo
+    where = np.repeat(lo - np.concatenate(([0], np.cumsum(sizes)[:-1])), sizes)
     where += np.arange(len(where))
-    owner = np.repeat(np.arange(len(starts)), sizes)
-    fix = np.lexsort((scores[order[where]], owner))
-    order[where] = order[where][fix]
+    fix = np.lexsort((values[where], np.repeat(np.arange(len(lo)), sizes)))
+    for array in (values, *alongside):
+        array[where] = array[where][fix]
+    return where
 
 
-def window_min(values: np.ndarray, width: int, pad: int, reduce=np.minimum) -> np.ndarray:
-    """``out[i] = min(values[i : i + width])``, positions past the end counting as ``pad``.
+def window_max_before(values: np.ndarray, width: int) -> np.ndarray:
+    """``out[i] = max(values[i - width : i])`` for ``i`` in ``0 .. len(values) + width - 1``,
+    steps outside the array counting as ``-inf``.
 
-    Doubling: minima over windows of 1, 2, 4, ... steps from shifted slices, then two
-    overlapping power-of-two windows cover any width (O(n log width)). ``reduce=np.maximum``
-    gives window maxima.
+    Doubling in one buffer: maxima over windows of 1, 2, 4, ... steps, each pass one
+    ``maximum`` of the buffer with itself shifted, then two overlapping power-of-two windows
+    cover ``width`` (O(n log width)).
     """
     n = len(values)
-    out = values.copy()
-    if width <= 1 or n == 0:
-        return out
-    current = np.concatenate((values, np.full(width, pad, dtype=values.dtype)))
+    padded = np.full(n + 2 * width, -np.inf)
+    padded[width : width + n] = values
     span = 1
     while span * 2 <= width:
-        current[: len(current) - span] = reduce(current[:-span], current[span:])
-        current[len(current) - span :] = pad
+        np.maximum(padded[:-span], padded[span:], out=padded[:-span])
         span *= 2
-    reduce(current[:n], current[width - span : width - span + n], out=out)
-    return out
+    return np.maximum(padded[: n + width], padded[width - span : width - span + n + width])
 
 
-def _last_alert_levels(level, windows, events, gap, top) -> tuple[np.ndarray, np.ndarray]:
-    """Per normal stretch before each event: the levels ``[first, bridged)`` at which one alert
+class _Windows(NamedTuple):
+    """``at(i)``: the highest score among steps ``i - gap - 1 .. i - 1`` (``-inf`` outside the
+    series), read from ``values[i - offset]``: the scores themselves (offset 1) when
+    ``gap = 0``, else the window maxima (offset 0)."""
+
+    values: np.ndarray
+    offset: int
+
+    def at(self, i: np.ndarray) -> np.ndarray:
+        j = i - self.offset
+        return np.where(j >= 0, self.values[np.maximum(j, 0)], -np.inf)
+
+    def min_over(self, starts: np.ndarray, stops: np.ndarray) -> np.ndarray:
+        """Lowest window value over each ordered, disjoint, non-empty ``[start, stop)``."""
+        lo, hi = starts - self.offset, stops - self.offset
+        return np.minimum.reduceat(self.values, _bounds(lo, hi, len(self.values)))[::2]
+
+
+def _last_alert_scores(s, windows: _Windows, events, gap) -> tuple[np.ndarray, np.ndarray]:
+    """Per normal stretch before each event: the thresholds ``(low, high]`` at which one alert
     that starts in the stretch runs into the event (so it is true although it starts there).
 
-    ``windows[i]`` is the lowest level among steps ``i - gap - 1 .. i - 1``: the window of
-    ``gap + 1`` steps that starts at ``i - gap - 1`` is unpredicted exactly at the levels below
-    it. For the stretch ``[a, e - 1]`` before the event that starts at ``e``: ``first`` is the
-    lowest level at which a predicted step ``p`` of the stretch is joined to the event (no
-    unpredicted window starts in ``(p, e]``); from ``bridged`` on, no unpredicted window meets
+    ``windows.at(i)`` is the highest score among steps ``i - gap - 1 .. i - 1``: the window of
+    ``gap + 1`` steps that starts at ``i - gap - 1`` is unpredicted exactly at thresholds above
+    it. For the stretch ``[a, e - 1]`` before the event that starts at ``e``: ``high`` is the
+    highest threshold at which a predicted step ``p`` of the stretch is joined to the event (no
+    unpredicted window starts in ``(p, e]``); at or below ``low`` no unpredicted window meets
     ``[a - 1, e]``, so that alert began before the stretch.
     """
     e = events[:, 0]
     a = np.concatenate(([0], events[:-1, 1] + 1))
     shift = gap + 1
-    first = np.empty(len(e), dtype=np.int64)
-    near = np.empty(len(e), dtype=np.int64)
+    high = np.empty(len(e))
+    near = np.empty(len(e))
     back = np.arange(1, shift + 1)
     chunk = max(1, 4_000_000 // shift)
     for lo in range(0, len(e), chunk):  # chunks of events keep the (events, gap + 1) grid small
         ends, begins = e[lo : lo + chunk, None], a[lo : lo + chunk, None]
         p = ends - back
-        joined = np.maximum.accumulate(windows[p + 1 + shift], axis=1)
-        own = np.where(p >= begins, level[np.maximum(p, 0)], top)
-        first[lo : lo + chunk] = np.maximum(own, joined).min(axis=1)
-        near[lo : lo + chunk] = windows[begins + back - 1].max(axis=1)
-    inside = np.maximum.reduceat(windows, _bounds(a + shift, e + 1 + shift, len(windows)))[::2]
-    reach = np.maximum(near, inside)
-    bridged = np.where(a > 0, reach, top)
-    return first, np.maximum(first, bridged)
+        joined = np.minimum.accumulate(windows.at(p + 1 + shift), axis=1)
+        own = np.where(p >= begins, s[np.maximum(p, 0)], -np.inf)
+        high[lo : lo + chunk] = np.minimum(own, joined).max(axis=1)
+        near[lo : lo + chunk] = windows.at(begins + back - 1).min(axis=1)
+    reach = np.minimum(near, windows.min_over(a + shift, e + 1 + shift))
+    low = np.where(a > 0, reach, -np.inf)
+    return np.minimum(high, low), high
 
 
 def _bounds(starts: np.ndarray, stops: np.ndarray, n: int) -> np.ndarray:
@@ -251,43 +254,88 @@ def alert_curve(scores: object, labels: object, merge_gap: int = 0) -> AlertCurv
     """
     s, y = scores_and_labels(scores, labels)
     gap = check_merge_gap(merge_gap)
-    thresholds, level, unique = _levels(s)
-    top = len(thresholds)
-    if top == 0:
-        return AlertCurve(thresholds, np.empty(0), np.empty(0, dtype=np.int64))
-    events = runs_of(y)
-    # windows[i]: lowest level among steps i - gap - 1 .. i - 1 (top outside the series).
-    shift = gap + 1
+    n = len(s)
+    # A step t starts an alert at the thresholds window[t] < θ <= s[t]; those on unlabelled
+    # steps count +1 at their own score and -1 at the window's highest score.
     if gap == 0:
-        windows = np.empty(len(level) + 1, dtype=np.int64)
-        windows[0], windows[1:] = top, level
+        windows = _Windows(s, 1)
+        starts = np.empty(n, dtype=bool)
+        starts[0] = True
+        np.greater(s[1:], s[:-1], out=starts[1:])
+        np.greater(starts, y, out=starts)  # ... and unlabelled
+        codes = starts.view(np.int8) + np.int8(1)  # code = change + 1
+        codes[:-1] -= starts[1:]  # the -1 sits on the step before: known without a search
     else:
-        windows = window_min(np.concatenate((np.full(shift, top), level)), shift, top)
-    before = windows[: len(level)]
-    # An unlabelled step t starts an alert at the levels level[t] <= k < before[t]; each such
-    # alert is false unless it is the one that runs into the next event.
-    candidate = level < before
-    np.greater(candidate, y, out=candidate)  # and unlabelled
-    starts = np.flatnonzero(candidate)
-    if unique and gap == 0:  # each level, and each step before a start, is met once
-        change = np.zeros(top + 1, dtype=np.int64)
-        change[level[starts]] = 1
-        change[before[starts]] -= 1  # only "top" can repeat, and it is dropped below
+        windows = _Windows(window_max_before(s, gap + 1), 0)
+        before = windows.values[:n]
+        starts = s > before
+        np.greater(starts, y, out=starts)
+        codes = starts.view(np.int8) + np.int8(1)  # the -1s are placed by score below
+    order, ascending, change_codes, ties = ascending_order(s, codes)
+    never = int(np.searchsorted(ascending, -np.inf, side="right"))  # -inf sorts first
+    finite = n - never
+    if finite == 0:
+        return AlertCurve(np.empty(0), np.empty(0), np.empty(0, dtype=np.int64))
+    # Work in ascending order over the finite scores (position j holds ascending[never + j]);
+    # sums from the top are cumulative sums read backwards, so the curve comes out descending.
+    change = change_codes[never:]
+    change -= 1  # now -1, 0 or 1
+    ties = ties[ties >= never] - never
+    ends = None
+    if len(ties):  # read the sums at the lowest position of each distinct score
+        first = np.ones(finite, dtype=bool)
+        first[ties + 1] = False
+        ends = finite - 1 - np.flatnonzero(first)[::-1]  # the same places, counted from the top
+
+    # Corrections, each at the highest position holding a value (found by score): -1 at each
+    # start's window maximum (gap > 0; with gap 0 it was carried with the step before), and per
+    # event -1 up to `high` and +1 up to `low` (see _last_alert_scores).
+    corrections = []
+    if gap > 0:
+        maxima = np.sort(before[starts])  # only how many at each position matters
+        corrections.append((np.searchsorted(ascending, maxima, side="right") - never, -1))
+    events = runs_of(y)
+    if len(events):
+        low, high = _last_alert_scores(s, windows, events, gap)
+        e = len(events)
+        maxima = segment_max(s, events[:, 0], events[:, 1] + 1)
+        at = _positions(ascending, np.concatenate((high, low, maxima)), never)
+        corrections += [(at[:e], -1), (at[e : 2 * e], 1)]
+        recall = _recall_from_top(finite - at[2 * e :], finite)
     else:
-        change = np.bincount(level[starts], minlength=top + 1)
-        change -= np.bincount(before[starts], minlength=top + 1)
-    if len(events) == 0:
-        return AlertCurve(thresholds, np.zeros(top), np.cumsum(change, out=change)[:top])
-    first, bridged = _last_alert_levels(level, windows, events, gap, top)
-    np.subtract.at(change, first, 1)
-    np.add.at(change, bridged, 1)
-    detected = np.minimum.reduceat(level, _bounds(events[:, 0], events[:, 1] + 1, len(level)))[::2]
-    # event recall steps up at each event's detection level: written run by run, not summed
-    found, at = np.unique(np.minimum(detected, top), return_counts=True)
-    steps = np.diff(np.concatenate((found, [top])))
-    recall = np.repeat(np.cumsum(at) / len(events), steps)
-    recall = np.concatenate((np.zeros(found[0]), recall)) if found[0] > 0 else recall
-    return AlertCurve(thresholds, recall[:top], np.cumsum(change, out=change)[:top])
+        recall = np.zeros(finite)
+    if corrections:
+        _add_at(change, corrections)
+    false_alerts = np.cumsum(change[::-1], out=order[:finite])  # order is no longer needed
+    thresholds = ascending[never:][::-1]
+    if ends is not None:
+        thresholds, false_alerts, recall = thresholds[ends], false_alerts[ends], recall[ends]
+    return AlertCurve(thresholds, recall, false_alerts)
+
+
+def _positions(ascending: np.ndarray, values: np.ndarray, never: int) -> np.ndarray:
+    """Highest position among the finite scores holding each value, as the number of finite
+    scores up to it (0 for ``-inf``). The values are searched in sorted order, which touches
+    less memory, and the answers put back in their order."""
+    arranged = np.argsort(values)
+    at = np.empty(len(values), dtype=np.int64)
+    at[arranged] = np.searchsorted(ascending, values[arranged], side="right") - never
+    return at
+
+
+def _add_at(change: np.ndarray, corrections: list[tuple[np.ndarray, int]]) -> None:
+    """``change[at - 1] += sign`` for each ``(at, sign)``, repeats adding up, ``at = 0``
+    (``-inf``) skipped."""
+    for at, sign in corrections:
+        np.add.at(change, at[at > 0] - 1, sign)
+
+
+def _recall_from_top(found: np.ndarray, finite: int) -> np.ndarray:
+    """Event recall when the top ``r + 1`` finite scores are predicted, for each ``r``, given
+    the rank (from the top) at which each event's highest score comes in: a step function
+    written run by run."""
+    runs = np.diff(np.concatenate(([0], np.sort(found), [finite])))
+    return np.repeat(np.arange(len(found) + 1) / len(found), runs)
 
 
 # ------------------------------------------------------------------ what the operator sees

@@ -23,7 +23,7 @@ from benchkit.metrics import (
     event_recall,
     labels_to_events,
 )
-from benchkit.metrics.alerts import dense_levels
+from benchkit.metrics.alerts import ascending_order, window_max_before
 
 
 def _brute_count(pred, labels, gap):
@@ -135,28 +135,65 @@ def test_alert_curve_without_events_or_thresholds():
     assert len(empty.thresholds) == len(empty.false_alerts) == len(empty.event_recall) == 0
 
 
-@pytest.mark.parametrize("base", [1.0, -2.5, 0.0, 1e300, -1e-300])
-def test_levels_are_exact_for_scores_one_ulp_apart(base):
-    # Scores that differ only in their last bits (and ties) must still be told apart exactly;
-    # reference: numpy.unique.
+def _ulp_apart(base: float, count: int) -> np.ndarray:
+    """``count`` consecutive doubles from ``base`` upwards (each one ulp above the last)."""
+    values = [base]
+    for _ in range(count - 1):
+        values.append(np.nextafter(values[-1], np.inf))
+    return np.array(values)
+
+
+@pytest.mark.parametrize("base", [1.0, -2.5, 0.0, 1e300, -1e-300, 5e-324, -np.finfo(float).max])
+@pytest.mark.parametrize("levels", [9, 3000])
+def test_order_is_exact_for_scores_few_ulps_apart(base, levels):
+    # Scores that differ only in their last bits (the bits the sort key gives to the step's
+    # index), ties, -inf and -0.0 must still come out in exact order; reference: numpy's sort.
+    # With 3000 levels whole runs of keys collide, so the repair has to widen its windows.
     rng = np.random.default_rng(3)
-    steps = rng.integers(0, 9, 500)
-    scores = np.array([base])
-    for _ in range(8):
-        scores = np.append(scores, np.nextafter(scores[-1], np.inf))
-    scores = scores[steps]
-    scores[rng.random(500) < 0.05] = -np.inf
-    thresholds, level = dense_levels(scores)
-    np.testing.assert_array_equal(thresholds, np.unique(scores[np.isfinite(scores)])[::-1])
-    np.testing.assert_array_equal(np.append(thresholds, -np.inf)[level], scores)
+    scores = _ulp_apart(base, levels)[rng.integers(0, levels, 5000)]
+    scores[rng.random(5000) < 0.05] = -np.inf
+    scores[rng.random(5000) < 0.02] = -0.0
+    codes = rng.integers(0, 4, 5000).astype(np.int8)
+    order, ascending, carried, ties = ascending_order(scores, codes)
+    np.testing.assert_array_equal(np.sort(order), np.arange(5000))  # a permutation
+    np.testing.assert_array_equal(ascending, np.sort(scores))
+    np.testing.assert_array_equal(scores[order], ascending)
+    np.testing.assert_array_equal(carried, codes[order])  # each code moved with its step
+    np.testing.assert_array_equal(ties, np.flatnonzero(ascending[1:] == ascending[:-1]))
+
+
+@pytest.mark.parametrize("gap", [0, 4])
+def test_alert_curve_on_scores_few_ulps_apart_matches_brute_force(gap):
+    rng = np.random.default_rng(11)
+    n = 400
+    labels = (rng.random(n) < 0.03).astype(np.int8)
+    labels = np.maximum(labels, np.roll(labels, 1))
+    scores = _ulp_apart(0.75, 40)[rng.integers(0, 40, n)]
+    curve = alert_curve(scores, labels, gap)
+    np.testing.assert_array_equal(curve.thresholds, np.unique(scores)[::-1])
+    for i, theta in enumerate(curve.thresholds):
+        pred = scores >= theta
+        assert curve.false_alerts[i] == _brute_count(pred, labels, gap)[1]
+        assert curve.event_recall[i] == pytest.approx(event_recall(pred, labels), abs=1e-12)
 
 
 def test_negative_zero_is_zero():
-    # IEEE 754: -0.0 == 0.0, so they are one threshold (reference: numpy.unique)
-    scores = np.array([0.0, -0.0, 1.0, -0.0, -1.0])
-    thresholds, level = dense_levels(scores)
-    np.testing.assert_array_equal(thresholds, [1.0, 0.0, -1.0])
-    np.testing.assert_array_equal(level, [1, 1, 0, 1, 2])
+    # IEEE 754: -0.0 == 0.0, so they are one threshold (reference: numpy.unique); hand-worked
+    # false alerts without events: >= 1 predicts step 2 (1 alert), >= 0 steps 0..3 (1 alert),
+    # >= -1 everything (1 alert).
+    curve = alert_curve(np.array([0.0, -0.0, 1.0, -0.0, -1.0]), np.zeros(5, dtype=int))
+    np.testing.assert_array_equal(curve.thresholds, [1.0, 0.0, -1.0])
+    np.testing.assert_array_equal(curve.false_alerts, [1, 1, 1])
+
+
+def test_window_max_before_against_a_loop():
+    # reference: the definition, max over the `width` steps before i (-inf outside), by loop
+    rng = np.random.default_rng(5)
+    values = rng.normal(size=60)
+    for width in (1, 2, 3, 7, 8, 13, 70):
+        got = window_max_before(values, width)
+        want = [max(values[max(i - width, 0) : i], default=-np.inf) for i in range(60 + width)]
+        np.testing.assert_array_equal(got, want)
 
 
 def test_alert_metrics_hand_worked():
