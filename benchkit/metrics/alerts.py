@@ -6,7 +6,8 @@ and is *true* when that span overlaps a labelled event, *false* otherwise. (With
 the span is the run itself; with a larger gap, an alert whose runs straddle a short event is true.)
 
 :func:`alert_curve` gives, for every distinct threshold at once, the event recall and the number of
-false alerts, from one sort of the scores. The counting rests on three facts:
+false alerts, from sorting the scores with each step's change carried along
+(:mod:`benchkit.metrics.coded_sort`). The counting rests on three facts:
 
 - step ``t`` starts an alert exactly at the thresholds ``window[t] < θ <= score[t]``, where
   ``window[t]`` is the highest score among the ``gap + 1`` steps before it (``-inf`` before the
@@ -30,6 +31,7 @@ from typing import NamedTuple
 
 import numpy as np
 
+from benchkit.metrics.coded_sort import sorted_codes
 from benchkit.metrics.event_level import delays_of
 from benchkit.metrics.events import runs_of, segment_max, segment_sums
 from benchkit.metrics.inputs import MetricInputError, binary_pair, scores_and_labels
@@ -92,76 +94,6 @@ def count_alerts(pred: object, labels: object, merge_gap: int = 0) -> tuple[int,
 
 
 # ------------------------------------------------------------------------------ the curve
-
-
-LOWEST = np.finfo(np.float64).min
-
-
-def ascending_order(
-    scores: np.ndarray, codes: np.ndarray | None = None
-) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Sort ``scores`` ascending, exactly, carrying a 2-bit code per step along.
-
-    Parameters
-    ----------
-    scores : 1-D float64, finite or ``-inf``.
-    codes : optional 1-D int8 in 0..3, one per step, moved with its step (0 without).
-
-    Returns
-    -------
-    (order, ascending, carried, ties): the permutation, the sorted scores, ``codes[order]``
-    (int64), and the positions ``i`` where ``ascending[i + 1] == ascending[i]`` (``-0.0`` and
-    ``0.0`` are one score).
-
-    One sort of float64 keys: each score with its lowest bits replaced by ``4 * step + code``
-    (``-inf`` first raised to the lowest finite value, so that no key is NaN). Keys of
-    different scores keep their order unless the scores agree above the replaced bits; the few
-    places where that leaves neighbours out of order are sorted again by score, in windows
-    that widen until nothing is out of order.
-    """
-    n = len(scores)
-    replaced = np.int64((1 << (max(int(n - 1).bit_length(), 1) + 2)) - 1)
-    source = np.maximum(scores, LOWEST) if n and scores.min() == -np.inf else scores
-    keys = np.bitwise_and(source.view(np.int64), ~replaced)
-    order = np.arange(0, 4 * n, 4, dtype=np.int64)  # a scratch buffer until sorted
-    if codes is not None:
-        order += codes
-    keys |= order
-    keys.view(np.float64).sort()
-    np.bitwise_and(keys, replaced, out=order)
-    order >>= 2
-    ascending = np.take(scores, order, mode="clip")
-    keys &= 3  # the carried codes
-    level = np.flatnonzero(ascending[1:] <= ascending[:-1])  # ties, and keys out of order
-    late = level[ascending[level + 1] < ascending[level]]
-    reach = 8
-    while len(late):
-        mended = _sort_near(ascending, late, reach, order, keys)
-        near = np.unique(np.concatenate((mended - 1, mended)).clip(0, max(n - 2, 0)))
-        late = near[ascending[near + 1] < ascending[near]]
-        level = np.union1d(level, near)  # pairs it may have changed are re-read below
-        reach *= 4
-    return order, ascending, keys, level[ascending[level + 1] == ascending[level]]
-
-
-def _sort_near(
-    values: np.ndarray, late: np.ndarray, reach: int, *alongside: np.ndarray
-) -> np.ndarray:
-    """Sort ``values`` by value within ``reach`` steps of each pair ``(i, i + 1)`` in ``late``,
-    overlapping windows merged, moving the ``alongside`` arrays with them; in place. Returns
-    the positions it sorted."""
-    lo = np.maximum(late - reach, 0)
-    hi = np.minimum(late + reach + 2, len(values))
-    opens = np.concatenate(([True], lo[1:] > hi[:-1]))
-    closes = np.concatenate((opens[1:], [True]))
-    lo, hi = lo[opens], hi[closes]
-    sizes = hi - lo
-    where = np.repeat(lo - np.concatenate(([0], np.cumsum(sizes)[:-1])), sizes)
-    where += np.arange(len(where))
-    fix = np.lexsort((values[where], np.repeat(np.arange(len(lo)), sizes)))
-    for array in (values, *alongside):
-        array[where] = array[where][fix]
-    return where
 
 
 def window_max_before(values: np.ndarray, width: int) -> np.ndarray:
@@ -271,25 +203,25 @@ def alert_curve(scores: object, labels: object, merge_gap: int = 0) -> AlertCurv
         starts = s > before
         np.greater(starts, y, out=starts)
         codes = starts.view(np.int8) + np.int8(1)  # the -1s are placed by score below
-    order, ascending, change_codes, ties = ascending_order(s, codes)
+    ascending, change_codes, ties = sorted_codes(s, codes)
     never = int(np.searchsorted(ascending, -np.inf, side="right"))  # -inf sorts first
     finite = n - never
     if finite == 0:
         return AlertCurve(np.empty(0), np.empty(0), np.empty(0, dtype=np.int64))
-    # Work in ascending order over the finite scores (position j holds ascending[never + j]);
-    # sums from the top are cumulative sums read backwards, so the curve comes out descending.
-    change = change_codes[never:]
+    # change[r] belongs to the r-th highest finite score; summed from the top and read at the
+    # last rank of each distinct score, it gives the false alerts at that threshold.
+    change = change_codes[:finite]
     change -= 1  # now -1, 0 or 1
     ties = ties[ties >= never] - never
     ends = None
-    if len(ties):  # read the sums at the lowest position of each distinct score
+    if len(ties):  # the last rank of each distinct score: its lowest position, from the top
         first = np.ones(finite, dtype=bool)
         first[ties + 1] = False
-        ends = finite - 1 - np.flatnonzero(first)[::-1]  # the same places, counted from the top
+        ends = finite - 1 - np.flatnonzero(first)[::-1]
 
-    # Corrections, each at the highest position holding a value (found by score): -1 at each
-    # start's window maximum (gap > 0; with gap 0 it was carried with the step before), and per
-    # event -1 up to `high` and +1 up to `low` (see _last_alert_scores).
+    # Corrections by score, each at the first rank holding the score: -1 at each start's window
+    # maximum (gap > 0; with gap 0 it was carried with the step before), and per event -1 from
+    # `high` down and +1 from `low` down (see _last_alert_scores).
     corrections = []
     if gap > 0:
         maxima = np.sort(before[starts])  # only how many at each position matters
@@ -306,7 +238,7 @@ def alert_curve(scores: object, labels: object, merge_gap: int = 0) -> AlertCurv
         recall = np.zeros(finite)
     if corrections:
         _add_at(change, corrections)
-    false_alerts = np.cumsum(change[::-1], out=order[:finite])  # order is no longer needed
+    false_alerts = np.cumsum(change, out=change)
     thresholds = ascending[never:][::-1]
     if ends is not None:
         thresholds, false_alerts, recall = thresholds[ends], false_alerts[ends], recall[ends]
@@ -324,10 +256,12 @@ def _positions(ascending: np.ndarray, values: np.ndarray, never: int) -> np.ndar
 
 
 def _add_at(change: np.ndarray, corrections: list[tuple[np.ndarray, int]]) -> None:
-    """``change[at - 1] += sign`` for each ``(at, sign)``, repeats adding up, ``at = 0``
-    (``-inf``) skipped."""
+    """For each ``(at, sign)``: ``sign`` added to ``change`` (highest score first) at the rank
+    of the highest finite position ``at - 1``, repeats adding up; ``at = 0`` (``-inf``)
+    skipped."""
+    finite = len(change)
     for at, sign in corrections:
-        np.add.at(change, at[at > 0] - 1, sign)
+        np.add.at(change, finite - at[at > 0], sign)
 
 
 def _recall_from_top(found: np.ndarray, finite: int) -> np.ndarray:

@@ -23,7 +23,8 @@ from benchkit.metrics import (
     event_recall,
     labels_to_events,
 )
-from benchkit.metrics.alerts import ascending_order, window_max_before
+from benchkit.metrics.alerts import window_max_before
+from benchkit.metrics.coded_sort import ascending_order, sorted_with_codes
 
 
 def _brute_count(pred, labels, gap):
@@ -160,6 +161,49 @@ def test_order_is_exact_for_scores_few_ulps_apart(base, levels):
     np.testing.assert_array_equal(scores[order], ascending)
     np.testing.assert_array_equal(carried, codes[order])  # each code moved with its step
     np.testing.assert_array_equal(ties, np.flatnonzero(ascending[1:] == ascending[:-1]))
+
+
+@pytest.mark.parametrize("kind", ["normal", "integers", "zeros"])
+def test_two_sorts_agree_with_the_sort_that_carries_the_index(kind):
+    # The fast path (two sorts, no gather) must give the same sorted scores, the same ties and
+    # the same codes in each run of equal scores as the exact reference path; reference for
+    # the scores themselves: numpy's sort.
+    rng = np.random.default_rng(8)
+    n = 3000
+    if kind == "normal":
+        scores = rng.normal(size=n)
+    elif kind == "integers":
+        scores = rng.integers(-3, 4, n).astype(float)
+    else:
+        scores = rng.choice([0.0, -0.0, 1.5, -2.0], n)
+    scores[rng.random(n) < 0.05] = -np.inf
+    codes = rng.integers(0, 4, n).astype(np.int8)
+    fast = sorted_with_codes(scores, codes)
+    assert fast is not None
+    ascending, carried, ties = fast
+    _, want_ascending, want_carried, want_ties = ascending_order(scores, codes)
+    np.testing.assert_array_equal(ascending, np.sort(scores))
+    np.testing.assert_array_equal(ties, want_ties)
+    # The fast path gives the codes highest score first, and only the finite scores' codes
+    # count (-inf is never predicted; a sort may rewrite the keys that -inf becomes). Compare
+    # the sums from the top, read at the end of each run of equal scores.
+    finite = int(np.isfinite(scores).sum())
+    descending = ascending[::-1][:finite]
+    ends = np.flatnonzero(np.append(descending[1:] != descending[:-1], True))
+    np.testing.assert_array_equal(
+        np.cumsum(carried[:finite])[ends], np.cumsum(want_carried[::-1][:finite])[ends]
+    )
+
+
+def test_two_sorts_step_aside_where_they_would_not_be_exact():
+    # distinct scores that differ only in the lowest two bits share a key; a subnormal next to
+    # zero shares a key with 0.0 or -0.0: both must fall back to the exact path
+    codes = np.zeros(4, dtype=np.int8)
+    clash = np.array([1.0, np.nextafter(1.0, 2.0), 3.0, 1.0])
+    assert sorted_with_codes(clash, codes) is None
+    near_zero = np.array([0.0, 5e-324, 1.0, 2.0])
+    assert sorted_with_codes(near_zero, codes) is None
+    assert sorted_with_codes(np.array([0.0, 1e-300, 1.0, 2.0]), codes) is not None
 
 
 @pytest.mark.parametrize("gap", [0, 4])
