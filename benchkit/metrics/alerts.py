@@ -203,7 +203,7 @@ def alert_curve(scores: object, labels: object, merge_gap: int = 0) -> AlertCurv
         starts = s > before
         np.greater(starts, y, out=starts)
         codes = starts.view(np.int8) + np.int8(1)  # the -1s are placed by score below
-    ascending, change_codes, ties = sorted_codes(s, codes)
+    ascending, change_codes, tied = sorted_codes(s, codes)
     never = int(np.searchsorted(ascending, -np.inf, side="right"))  # -inf sorts first
     finite = n - never
     if finite == 0:
@@ -212,13 +212,8 @@ def alert_curve(scores: object, labels: object, merge_gap: int = 0) -> AlertCurv
     # last rank of each distinct score, it gives the false alerts at that threshold.
     change = change_codes[:finite]
     change -= 1  # now -1, 0 or 1
-    ties = ties[ties >= never] - never
-    ends = None
-    if len(ties):  # the last rank of each distinct score: its lowest position, from the top
-        first = np.ones(finite, dtype=bool)
-        first[ties + 1] = False
-        ends = finite - 1 - np.flatnonzero(first)[::-1]
-
+    tied = tied[never:]
+    any_ties = bool(tied.any())
     # Corrections by score, each at the first rank holding the score: -1 at each start's window
     # maximum (gap > 0; with gap 0 it was carried with the step before), and per event -1 from
     # `high` down and +1 from `low` down (see _last_alert_scores).
@@ -233,15 +228,24 @@ def alert_curve(scores: object, labels: object, merge_gap: int = 0) -> AlertCurv
         maxima = segment_max(s, events[:, 0], events[:, 1] + 1)
         at = _positions(ascending, np.concatenate((high, low, maxima)), never)
         corrections += [(at[:e], -1), (at[e : 2 * e], 1)]
-        recall = _recall_from_top(finite - at[2 * e :], finite)
-    else:
-        recall = np.zeros(finite)
+        found = finite - at[2 * e :]  # the rank from which each event is detected
     if corrections:
         _add_at(change, corrections)
     false_alerts = np.cumsum(change, out=change)
-    thresholds = ascending[never:][::-1]
-    if ends is not None:
-        thresholds, false_alerts, recall = thresholds[ends], false_alerts[ends], recall[ends]
+    if not any_ties:
+        thresholds = ascending[never:][::-1]
+    else:  # keep each distinct score once, and the sums at its last rank
+        first = np.empty(finite, dtype=bool)  # ascending: first position of each score
+        first[0] = True
+        np.logical_not(tied, out=first[1:])
+        distinct = ascending[never:][first]
+        last = np.empty(finite, dtype=bool)  # descending: last rank of each score
+        last[-1] = True
+        np.logical_not(tied[::-1], out=last[:-1])
+        thresholds, false_alerts, finite = distinct[::-1], false_alerts[last], len(distinct)
+        if len(events):  # the distinct score from which each event is detected
+            found = finite - np.searchsorted(distinct, maxima, side="right")
+    recall = _recall_from_top(found, finite) if len(events) else np.zeros(finite)
     return AlertCurve(thresholds, recall, false_alerts)
 
 

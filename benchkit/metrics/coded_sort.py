@@ -57,9 +57,9 @@ def ascending_order(
     reach = 8
     while len(late):
         mended = _sort_near(ascending, late, reach, order, keys)
-        near = np.unique(np.concatenate((mended - 1, mended)).clip(0, max(n - 2, 0)))
+        near = _distinct(np.concatenate((mended - 1, mended)).clip(0, max(n - 2, 0)))
         late = near[ascending[near + 1] < ascending[near]]
-        level = np.union1d(level, near)  # pairs it may have changed are re-read below
+        level = _distinct(np.concatenate((level, near)))  # pairs it may have changed: re-read
         reach *= 4
     return order, ascending, keys, level[ascending[level + 1] == ascending[level]]
 
@@ -67,14 +67,13 @@ def ascending_order(
 def sorted_with_codes(
     scores: np.ndarray, codes: np.ndarray
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
-    """:func:`ascending_order` without the permutation, from two sorts: of the scores, and of
-    keys that are the negated scores with their lowest two bits replaced by the code (int8 in
-    0..3).
+    """:func:`sorted_codes` from two sorts: of the scores, and of keys that are the negated
+    scores with their lowest two bits replaced by the code (int8 in 0..3).
 
-    Returns ``(ascending, carried, ties)`` where ``carried`` is in *descending* order of score
-    (``-inf`` last), or None where that is not exact: where two distinct scores share a key
-    (they differ only in those two bits), and around zero when a subnormal within three steps
-    of it is there too (``-0.0`` and ``0.0`` are one score but not one bit pattern).
+    Returns what :func:`sorted_codes` returns, or None where that would not be exact: where
+    two distinct scores share a key (they differ only in those two bits), and around zero when
+    a subnormal within three steps of it is there too (``-0.0`` and ``0.0`` are one score but
+    not one bit pattern).
 
     Both sorts order the keys' upper bits alike, so a run of equal scores holds the codes of
     exactly those steps; no gather from the scores is needed, whose random reads cost about as
@@ -88,34 +87,37 @@ def sorted_with_codes(
     keys &= np.int64(-4)
     keys |= codes
     keys.view(np.float64).sort()
-    ties = _equal_neighbours(ascending)
-    if ties is None:
+    tied = np.equal(ascending[1:], ascending[:-1])
+    if _shared_keys(ascending, tied):
         return None
     zero, past = int(np.searchsorted(ascending, 0.0)), int(np.searchsorted(ascending, 0.0, "right"))
-    if past > zero:
-        if (zero > 0 and ascending[zero - 1] > -_NEAR_ZERO) or (
-            past < n and ascending[past] < _NEAR_ZERO
-        ):
-            return None
-        ties = np.union1d(ties, np.arange(zero, past - 1))
+    below = zero > 0 and ascending[zero - 1] > -_NEAR_ZERO
+    above = past < n and ascending[past] < _NEAR_ZERO
+    if past > zero and (below or above):
+        return None
     keys &= 3
-    return ascending, keys, ties
+    return ascending, keys, tied
 
 
-def _equal_neighbours(ascending: np.ndarray, block: int = 1 << 16) -> np.ndarray | None:
-    """Positions ``i`` where ``ascending[i + 1]`` has the same bits as ``ascending[i]``; None
-    when some neighbours differ only in their lowest two bits. Read in blocks, which keeps the
-    temporaries in the cache."""
+def _shared_keys(ascending: np.ndarray, tied: np.ndarray, block: int = 1 << 16) -> bool:
+    """Whether two neighbours differ only in their lowest two bits. Read in blocks, which
+    keeps the temporaries in the cache."""
     bits = ascending.view(np.uint64)
-    found = []
     for lo in range(0, len(bits) - 1, block):
         hi = min(lo + block, len(bits) - 1)
-        apart = np.bitwise_xor(bits[lo + 1 : hi + 1], bits[lo:hi])
-        close = np.flatnonzero(apart < 4)
-        if apart[close].any():
-            return None
-        found.append(close + lo)
-    return np.concatenate(found) if found else np.empty(0, dtype=np.int64)
+        close = np.bitwise_xor(bits[lo + 1 : hi + 1], bits[lo:hi]) < 4
+        if np.greater(close, tied[lo:hi]).any():
+            return True
+    return False
+
+
+def _distinct(positions: np.ndarray) -> np.ndarray:
+    """Sorted distinct values of an int64 array (a sort and a compare: numpy's own ``unique``
+    takes far longer on a million integers)."""
+    ordered = np.sort(positions)
+    keep = np.ones(len(ordered), dtype=bool)
+    np.not_equal(ordered[1:], ordered[:-1], out=keep[1:])
+    return ordered[keep]
 
 
 def _sort_near(
@@ -150,12 +152,14 @@ def sorted_codes(
 
     Returns
     -------
-    (ascending, carried, ties): ``np.sort(scores)``; the codes (int64) from the highest score
+    (ascending, carried, tied): ``np.sort(scores)``; the codes (int64) from the highest score
     down, whose first ``finite`` entries belong to the finite scores (codes of ``-inf`` steps
-    are not kept); the positions ``i`` with ``ascending[i + 1] == ascending[i]``.
+    are not kept); ``tied[i]`` when ``ascending[i + 1] == ascending[i]``.
     """
     fast = sorted_with_codes(scores, codes)
     if fast is not None:
         return fast
     _, ascending, carried, ties = ascending_order(scores, codes)
-    return ascending, carried[::-1].copy(), ties
+    tied = np.zeros(max(len(scores) - 1, 0), dtype=bool)
+    tied[ties] = True
+    return ascending, carried[::-1].copy(), tied
