@@ -6,7 +6,8 @@ process's CPU time (less sensitive to other processes on a shared machine); the 
 alert_curve / best_f1(adjust="point"). Target (issue 14): at n = 1,000,000 with 1,000 events,
 alert_curve with the default merge_gap = 0 costs at most 2x best_f1(adjust="point"). A larger gap
 is printed for reference (it adds the sliding window maxima and a search of each alert start's
-window maximum), without a target.
+window maximum), without a target; so are other shapes of scores (ties, float32 values, a
+warm-up of -inf) and of labels (many short events).
 """
 
 from __future__ import annotations
@@ -19,6 +20,7 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
+import numpy as np  # noqa: E402
 from metrics_speed import make_case, verdict  # noqa: E402
 
 from benchkit.metrics import alert_curve, best_f1  # noqa: E402
@@ -46,6 +48,29 @@ def curve_speed(n: int, events: int, repeats: int, judge: bool) -> None:
             print(f"  {name:28s} {value * 1e3:9.1f} ms  {ratio:6.2f}x{note}")
 
 
+def other_shapes(n: int, repeats: int) -> None:
+    """The same ratio on other shapes of scores and labels, for reference (no target)."""
+    rng = np.random.default_rng(2)
+    scores, labels = make_case(n, n // 1000)
+    many = np.zeros(n, dtype=np.int8)
+    for start in rng.choice(n - 50, n // 100, replace=False):
+        many[start : start + 20] = 1
+    shapes = {
+        "scores rounded to 0.001 (ties)": (np.round(scores, 3), labels),
+        "float32 scores": (scores.astype(np.float32).astype(np.float64), labels),
+        "warm-up of 5,000 -inf steps": (np.where(np.arange(n) < 5000, -np.inf, scores), labels),
+        f"{n // 100:,} events of 20 steps": (rng.normal(size=n) + 1.5 * many, many),
+    }
+    print(f"alert_curve(merge_gap=0) / best_f1(adjust='point') on other shapes, n={n:,}, "
+          f"median of {repeats}, CPU time, for reference")
+    for name, (s, y) in shapes.items():
+        calls = {"best": lambda s=s, y=y: best_f1(s, y, "point"),
+                 "curve": lambda s=s, y=y: alert_curve(s, y, 0)}
+        seconds = median_seconds(calls, dict.fromkeys(calls, repeats), time.process_time)
+        print(f"  {name:34s} {seconds['curve'] * 1e3:7.1f} ms / {seconds['best'] * 1e3:6.1f} ms"
+              f"  {seconds['curve'] / seconds['best']:5.2f}x")
+
+
 def median_seconds(calls: dict, repeats: dict, timer) -> dict[str, float]:
     """Median time of each call by ``timer``, repeats taken round-robin."""
     times: dict[str, list[float]] = {name: [] for name in calls}
@@ -66,6 +91,7 @@ def main() -> None:
         curve_speed(100_000, 100, 3, judge=False)
         return
     curve_speed(1_000_000, 1_000, 15, judge=True)
+    other_shapes(1_000_000, 9)
 
 
 if __name__ == "__main__":

@@ -213,7 +213,6 @@ def alert_curve(scores: object, labels: object, merge_gap: int = 0) -> AlertCurv
     change = change_codes[:finite]
     change -= 1  # now -1, 0 or 1
     tied = tied[never:]
-    any_ties = bool(tied.any())
     # Corrections by score, each at the first rank holding the score: -1 at each start's window
     # maximum (gap > 0; with gap 0 it was carried with the step before), and per event -1 from
     # `high` down and +1 from `low` down (see _last_alert_scores).
@@ -232,16 +231,14 @@ def alert_curve(scores: object, labels: object, merge_gap: int = 0) -> AlertCurv
     if corrections:
         _add_at(change, corrections)
     false_alerts = np.cumsum(change, out=change)
-    if not any_ties:
+    if not tied.any():
         thresholds = ascending[never:][::-1]
     else:  # keep each distinct score once, and the sums at its last rank
         first = np.empty(finite, dtype=bool)  # ascending: first position of each score
         first[0] = True
         np.logical_not(tied, out=first[1:])
         distinct = ascending[never:][first]
-        last = np.empty(finite, dtype=bool)  # descending: last rank of each score
-        last[-1] = True
-        np.logical_not(tied[::-1], out=last[:-1])
+        last = first[::-1].copy()  # descending: last rank of each score
         thresholds, false_alerts, finite = distinct[::-1], false_alerts[last], len(distinct)
         if len(events):  # the distinct score from which each event is detected
             found = finite - np.searchsorted(distinct, maxima, side="right")

@@ -87,28 +87,33 @@ def sorted_with_codes(
     keys &= np.int64(-4)
     keys |= codes
     keys.view(np.float64).sort()
-    tied = np.equal(ascending[1:], ascending[:-1])
-    if _shared_keys(ascending, tied):
+    tied = _equal_neighbours(ascending)
+    if tied is None:
         return None
     zero, past = int(np.searchsorted(ascending, 0.0)), int(np.searchsorted(ascending, 0.0, "right"))
-    below = zero > 0 and ascending[zero - 1] > -_NEAR_ZERO
-    above = past < n and ascending[past] < _NEAR_ZERO
-    if past > zero and (below or above):
-        return None
+    if past > zero:  # -0.0 and 0.0: one score, two bit patterns
+        below = zero > 0 and ascending[zero - 1] > -_NEAR_ZERO
+        above = past < n and ascending[past] < _NEAR_ZERO
+        if below or above:
+            return None
+        tied[zero : past - 1] = True
     keys &= 3
     return ascending, keys, tied
 
 
-def _shared_keys(ascending: np.ndarray, tied: np.ndarray, block: int = 1 << 16) -> bool:
-    """Whether two neighbours differ only in their lowest two bits. Read in blocks, which
-    keeps the temporaries in the cache."""
+def _equal_neighbours(ascending: np.ndarray, block: int = 1 << 16) -> np.ndarray | None:
+    """``tied[i]`` when ``ascending[i + 1]`` has the same bits as ``ascending[i]``; None when
+    some neighbours differ only in their lowest two bits. Read in blocks, which keeps the
+    temporaries in the cache."""
     bits = ascending.view(np.uint64)
-    for lo in range(0, len(bits) - 1, block):
-        hi = min(lo + block, len(bits) - 1)
-        close = np.bitwise_xor(bits[lo + 1 : hi + 1], bits[lo:hi]) < 4
-        if np.greater(close, tied[lo:hi]).any():
-            return True
-    return False
+    tied = np.empty(max(len(bits) - 1, 0), dtype=bool)
+    for lo in range(0, len(tied), block):
+        hi = min(lo + block, len(tied))
+        apart = np.bitwise_xor(bits[lo + 1 : hi + 1], bits[lo:hi])
+        close = np.less(apart, 4, out=tied[lo:hi])
+        if close.any() and apart[close].any():
+            return None
+    return tied
 
 
 def _distinct(positions: np.ndarray) -> np.ndarray:
