@@ -218,8 +218,9 @@ def alert_curve(scores: object, labels: object, merge_gap: int = 0) -> AlertCurv
     # `high` down and +1 from `low` down (see _last_alert_scores).
     corrections = []
     if gap > 0:
-        maxima = np.sort(before[starts])  # only how many at each position matters
-        corrections.append((np.searchsorted(ascending, maxima, side="right") - never, -1))
+        window_maxima = np.sort(before[starts])  # only how many at each rank matters
+        at = np.searchsorted(ascending, window_maxima, side="right") - never
+        corrections.append((at, -1))
     events = runs_of(y)
     if len(events):
         low, high = _last_alert_scores(s, windows, events, gap)
