@@ -33,7 +33,7 @@ import numpy as np
 
 from benchkit.metrics.coded_sort import sorted_codes
 from benchkit.metrics.event_level import delays_of
-from benchkit.metrics.events import runs_of, segment_max, segment_sums
+from benchkit.metrics.events import runs_of, segment_max, segment_min, segment_sums
 from benchkit.metrics.inputs import MetricInputError, binary_pair, scores_and_labels
 
 SECONDS_PER_DAY = 86_400.0
@@ -128,8 +128,7 @@ class _Windows(NamedTuple):
 
     def min_over(self, starts: np.ndarray, stops: np.ndarray) -> np.ndarray:
         """Lowest window value over each ordered, disjoint, non-empty ``[start, stop)``."""
-        lo, hi = starts - self.offset, stops - self.offset
-        return np.minimum.reduceat(self.values, _bounds(lo, hi, len(self.values)))[::2]
+        return segment_min(self.values, starts - self.offset, stops - self.offset)
 
 
 def _last_alert_scores(s, windows: _Windows, events, gap) -> tuple[np.ndarray, np.ndarray]:
@@ -160,13 +159,6 @@ def _last_alert_scores(s, windows: _Windows, events, gap) -> tuple[np.ndarray, n
     reach = np.minimum(near, windows.min_over(a + shift, e + 1 + shift))
     low = np.where(a > 0, reach, -np.inf)
     return np.minimum(high, low), high
-
-
-def _bounds(starts: np.ndarray, stops: np.ndarray, n: int) -> np.ndarray:
-    """reduceat indices over an array of length ``n`` for ordered, disjoint, non-empty
-    ``[start, stop)`` segments; take every second result."""
-    bounds = np.column_stack([starts, stops]).ravel()
-    return bounds[:-1] if bounds[-1] == n else bounds
 
 
 def alert_curve(scores: object, labels: object, merge_gap: int = 0) -> AlertCurve:

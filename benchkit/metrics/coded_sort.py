@@ -18,14 +18,14 @@ _NEAR_ZERO = 4 * np.finfo(np.float64).smallest_subnormal
 
 
 def ascending_order(
-    scores: np.ndarray, codes: np.ndarray | None = None
+    scores: np.ndarray, codes: np.ndarray
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Sort ``scores`` ascending, exactly, carrying a 2-bit code per step along.
 
     Parameters
     ----------
     scores : 1-D float64, finite or ``-inf``.
-    codes : optional 1-D int8 in 0..3, one per step, moved with its step (0 without).
+    codes : 1-D int8 in 0..3, one per step, moved with its step.
 
     Returns
     -------
@@ -44,8 +44,7 @@ def ascending_order(
     source = np.maximum(scores, LOWEST) if n and scores.min() == -np.inf else scores
     keys = np.bitwise_and(source.view(np.int64), ~replaced)
     order = np.arange(0, 4 * n, 4, dtype=np.int64)  # a scratch buffer until sorted
-    if codes is not None:
-        order += codes
+    order += codes
     keys |= order
     keys.view(np.float64).sort()
     np.bitwise_and(keys, replaced, out=order)

@@ -78,12 +78,22 @@ def segment_sums(flags: np.ndarray, starts: np.ndarray, stops: np.ndarray) -> np
 
 def segment_max(values: np.ndarray, starts: np.ndarray, stops: np.ndarray) -> np.ndarray:
     """Maximum of ``values`` over each non-empty, non-overlapping, ordered ``[start, stop)``."""
+    return _segment_reduce(np.maximum, values, starts, stops)
+
+
+def segment_min(values: np.ndarray, starts: np.ndarray, stops: np.ndarray) -> np.ndarray:
+    """Minimum of ``values`` over each non-empty, non-overlapping, ordered ``[start, stop)``."""
+    return _segment_reduce(np.minimum, values, starts, stops)
+
+
+def _segment_reduce(ufunc, values, starts, stops) -> np.ndarray:
+    """``ufunc.reduceat`` over the segments (with the gaps between them skipped)."""
     if len(starts) == 0:
         return np.empty(0, dtype=values.dtype)
     bounds = np.column_stack([starts, stops]).ravel()
     if bounds[-1] == len(values):
         bounds = bounds[:-1]
-    return np.maximum.reduceat(values, bounds)[::2]
+    return ufunc.reduceat(values, bounds)[::2]
 
 
 def event_index(events: np.ndarray) -> np.ndarray:
