@@ -38,6 +38,8 @@ sys.path.insert(0, str(ROOT / "benchmarks"))
 from public_run import DATASET_TITLES, default_root, run  # noqa: E402
 
 from benchkit.metrics import alert_metrics, event_recall  # noqa: E402
+from benchkit.report import render_table, render_tables  # noqa: E402
+from benchkit.report.tables import Table  # noqa: E402
 from benchkit.store import Store  # noqa: E402
 from benchkit.thresholds import alert_budget_threshold, calibration_scores  # noqa: E402
 
@@ -104,32 +106,32 @@ def across_detectors(table: pd.DataFrame) -> pd.DataFrame:
     ).reset_index()
 
 
-def as_markdown(frame: pd.DataFrame) -> str:
-    """A markdown table with three decimals (minutes: whole numbers, "-" where none)."""
+def as_table(frame: pd.DataFrame, name: str, title: str, notes: tuple[str, ...] = ()) -> Table:
+    """A report table of ``frame``: three decimals, minutes as whole numbers ("-" where none)."""
     shown = frame.copy()
     for col in ("event_recall", "test_false_alerts_per_day", "within_budget"):
         shown[col] = shown[col].map(lambda v: f"{v:.3f}")
     shown["ttd_median_minutes"] = shown["ttd_median_minutes"].map(
         lambda v: "-" if not np.isfinite(v) else f"{v:.0f}")
-    head = "| " + " | ".join(shown.columns) + " |"
-    rule = "|" + "---|" * len(shown.columns)
-    body = ["| " + " | ".join(str(v) for v in row) + " |" for row in shown.to_numpy()]
-    return "\n".join([head, rule, *body])
+    rows = tuple(tuple(str(v) for v in row) for row in shown.to_numpy())
+    return Table(name, title, tuple(shown.columns), rows, notes)
 
 
-def report(table: pd.DataFrame, overall: pd.DataFrame) -> str:
-    parts = ["# Alert budgets on the public data", "",
-             "Written by `benchmarks/public_alert_budget_study.py` from the score cache of the",
-             "public experiment (merge_gap 0). Medians over the cells (entities x seeds) of each",
-             "dataset.",
-             "`within_budget`: share of cells whose false alerts per day on test stay within the",
-             "budget (calibrated on train, where it holds by construction). A benchmark result is",
-             "no guarantee for a production system.", "",
-             "## Median over the detectors (random left out)", "", as_markdown(overall), ""]
+NOTES = (
+    "Medians over the cells (entities x seeds) of each dataset, merge_gap 0.",
+    "within_budget: share of cells whose false alerts per day on test stay within the budget "
+    "(calibrated on train, where it holds by construction).",
+    "A benchmark result is no guarantee for a production system.",
+)
+
+
+def tables(table: pd.DataFrame, overall: pd.DataFrame) -> list[Table]:
+    """The median over the detectors first, then one table per dataset."""
+    out = [as_table(overall, "overall", "Median over the detectors (random left out)", NOTES)]
     for dataset in sorted(set(table["dataset"])):
-        parts += [f"## {DATASET_TITLES.get(dataset, dataset)}", "",
-                  as_markdown(table[table["dataset"] == dataset].drop(columns="dataset")), ""]
-    return "\n".join(parts)
+        part = table[table["dataset"] == dataset].drop(columns="dataset")
+        out.append(as_table(part, dataset, DATASET_TITLES.get(dataset, dataset)))
+    return out
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -147,9 +149,12 @@ def main(argv: list[str] | None = None) -> int:
     table = summary(frame)
     overall = across_detectors(table)
     OUT_CSV.write_text(table.to_csv(index=False), encoding="utf-8")
-    OUT_MD.write_text(report(table, overall), encoding="utf-8")
-    print("median over the detectors (random left out):")
-    print(as_markdown(overall))
+    shown = tables(table, overall)
+    head = ("# Alert budgets on the public data\n\nWritten by "
+            "`benchmarks/public_alert_budget_study.py` from the score cache of the public "
+            "experiment.\n\n")
+    OUT_MD.write_text(head + render_tables(shown, "md"), encoding="utf-8")
+    print(render_table(shown[0], "plain"))
     print(f"wrote {OUT_MD.relative_to(ROOT)} and {OUT_CSV.relative_to(ROOT)}")
     return 0
 
