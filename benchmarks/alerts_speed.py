@@ -13,7 +13,6 @@ warm-up of -inf) and of labels (many short events).
 from __future__ import annotations
 
 import argparse
-import statistics
 import sys
 import time
 from pathlib import Path
@@ -21,7 +20,7 @@ from pathlib import Path
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 import numpy as np  # noqa: E402
-from metrics_speed import make_case, verdict  # noqa: E402
+from metrics_speed import make_case, median_seconds, verdict  # noqa: E402
 
 from benchkit.metrics import alert_curve, best_f1  # noqa: E402
 
@@ -69,18 +68,6 @@ def other_shapes(n: int, repeats: int) -> None:
         seconds = median_seconds(calls, dict.fromkeys(calls, repeats), time.process_time)
         print(f"  {name:34s} {seconds['curve'] * 1e3:7.1f} ms / {seconds['best'] * 1e3:6.1f} ms"
               f"  {seconds['curve'] / seconds['best']:5.2f}x")
-
-
-def median_seconds(calls: dict, repeats: dict, timer) -> dict[str, float]:
-    """Median time of each call by ``timer``, repeats taken round-robin."""
-    times: dict[str, list[float]] = {name: [] for name in calls}
-    for round_ in range(max(repeats.values())):
-        for name, call in calls.items():
-            if round_ < repeats[name]:
-                start = timer()
-                call()
-                times[name].append(timer() - start)
-    return {name: statistics.median(values) for name, values in times.items()}
 
 
 def main() -> None:

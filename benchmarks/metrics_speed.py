@@ -50,15 +50,18 @@ def runs_prediction(n: int, ranges: int, seed: int = 1) -> np.ndarray:
     return pred
 
 
-def median_seconds(calls: dict[str, Callable], repeats: dict[str, int]) -> dict[str, float]:
-    """Median wall time of each call, repeats taken round-robin so load hits all alike."""
+def median_seconds(
+    calls: dict[str, Callable], repeats: dict[str, int], timer: Callable = time.perf_counter
+) -> dict[str, float]:
+    """Median time of each call by ``timer`` (default: wall time), repeats taken round-robin so
+    load hits all alike."""
     times: dict[str, list[float]] = {name: [] for name in calls}
     for round_ in range(max(repeats.values())):
         for name, call in calls.items():
             if round_ < repeats[name]:
-                start = time.perf_counter()
+                start = timer()
                 call()
-                times[name].append(time.perf_counter() - start)
+                times[name].append(timer() - start)
     return {name: statistics.median(values) for name, values in times.items()}
 
 
